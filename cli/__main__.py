@@ -1,0 +1,3 @@
+from segcut_cli.main import main
+
+raise SystemExit(main())
