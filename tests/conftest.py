@@ -1,0 +1,35 @@
+"""Shared test fixtures.
+
+``shared_data`` points at the public reference data (``../shared/data`` from the project
+root); tests that need it are skipped, with the reason, when it is absent.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+PROJECT_ROOT = Path(__file__).resolve().parent.parent
+SHARED_DATA = PROJECT_ROOT.parent / "shared" / "data"
+TEST_DATA = Path(__file__).resolve().parent / "data"
+
+
+@pytest.fixture
+def shared_data() -> Path:
+    """The public reference data folder; skips the test when it is not there."""
+    if not SHARED_DATA.is_dir():
+        pytest.skip(f"public reference data not found at ../shared/data (looked in {SHARED_DATA.parent.name}/)")
+    return SHARED_DATA
+
+
+@pytest.fixture
+def test_data() -> Path:
+    """The small data files committed with the tests (tests/data)."""
+    return TEST_DATA
+
+
+@pytest.fixture(autouse=True)
+def _doctest_namespace(doctest_namespace):
+    doctest_namespace["np"] = np
