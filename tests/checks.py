@@ -1,0 +1,121 @@
+"""Shared validators and oracles for the max-cut tests.
+
+``assert_valid_cut`` checks the certificate any method returns; ``brute_force_maxcut``
+is an independent exhaustive reference (plain numpy, nothing from the solvers) for
+graphs of up to about 20 vertices.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from segcut.graph import as_signed_graph
+from segcut.maxcut import STATUSES, CutResult
+
+__all__ = ["assert_valid_cut", "brute_force_maxcut", "reference_cut_value", "reference_gains"]
+
+
+def reference_cut_value(graph, sides) -> float:
+    """Cut value by a plain loop over the edges (independent of ``segcut.cut_value``)."""
+    graph = as_signed_graph(graph)
+    x = np.asarray(sides)
+    total = 0.0
+    n = graph.n_vertices
+    for i in range(n):
+        for k in range(graph.indptr[i], graph.indptr[i + 1]):
+            j = graph.indices[k]
+            if i < j and x[i] != x[j]:
+                total += float(graph.weights[k])
+    return total
+
+
+def reference_gains(graph, sides) -> np.ndarray:
+    """Change of the cut value when each vertex alone changes side, from the definition."""
+    graph = as_signed_graph(graph)
+    x = np.asarray(sides)
+    gains = np.zeros(graph.n_vertices)
+    for i in range(graph.n_vertices):
+        for k in range(graph.indptr[i], graph.indptr[i + 1]):
+            j = graph.indices[k]
+            w = float(graph.weights[k])
+            # the edge i-j becomes cut if it was uncut, and uncut if it was cut
+            gains[i] += w if x[i] == x[j] else -w
+    return gains
+
+
+def _tolerance(graph) -> float:
+    return 1e-9 * max(1.0, float(np.abs(graph.weights).sum() / 2.0))
+
+
+def assert_valid_cut(graph, result, *, local_optimum: bool = False) -> None:
+    """Check a :class:`~segcut.maxcut.CutResult` against its graph.
+
+    Checks: ``sides`` has one entry per vertex, each -1 or +1; the reported value
+    equals the value recomputed from the sides by an independent loop; the upper
+    bound, when given, is >= the value; the gap is ``(bound - value) / |bound|``
+    (None without a bound); the status is a known one. With ``local_optimum=True``
+    also checks 1-flip optimality in both directions: no vertex of either side
+    gains by moving to the other side.
+    """
+    graph = as_signed_graph(graph)
+    assert isinstance(result, CutResult), f"expected CutResult, got {type(result).__name__}"
+    sides = np.asarray(result.sides)
+    assert sides.shape == (graph.n_vertices,), f"sides shape {sides.shape} != ({graph.n_vertices},)"
+    assert np.all(np.isin(sides, (-1, 1))), f"sides not in {{-1, +1}}: {np.unique(sides)}"
+    tol = _tolerance(graph)
+    value = reference_cut_value(graph, sides)
+    assert math.isfinite(result.value)
+    assert abs(result.value - value) <= tol, f"reported value {result.value} != recomputed {value}"
+    if result.upper_bound is None:
+        assert result.gap is None, f"gap {result.gap} given without an upper bound"
+    else:
+        assert math.isfinite(result.upper_bound)
+        assert result.upper_bound >= value - tol, (
+            f"upper bound {result.upper_bound} below the value {value}")
+        expected_gap = max(0.0, (result.upper_bound - result.value) / max(abs(result.upper_bound), 1e-12))
+        assert result.gap is not None
+        assert abs(result.gap - expected_gap) <= 1e-9 + 1e-9 * expected_gap, (
+            f"gap {result.gap} inconsistent with value {result.value} and bound {result.upper_bound}")
+    assert result.status in STATUSES, f"unknown status {result.status!r}"
+    assert isinstance(result.method, str) and result.method
+    if local_optimum:
+        gains = reference_gains(graph, sides)
+        up = gains[sides == 1]
+        down = gains[sides == -1]
+        assert up.size == 0 or up.max() <= tol, f"a +1 vertex gains {up.max()} by moving"
+        assert down.size == 0 or down.max() <= tol, f"a -1 vertex gains {down.max()} by moving"
+
+
+def brute_force_maxcut(graph) -> tuple[float, np.ndarray]:
+    """The maximum cut by trying every split (vertex 0 fixed on side +1).
+
+    Returns ``(value, sides)``. Plain numpy, vectorised in blocks; fine up to about
+    20 vertices.
+    """
+    graph = as_signed_graph(graph)
+    n = graph.n_vertices
+    if n > 22:
+        raise ValueError(f"brute force is for tiny graphs; got {n} vertices")
+    if n <= 1:
+        return 0.0, np.ones(n, dtype=np.int8)
+    i, j, w = graph.edges()
+    best_value = -math.inf
+    best_sides = None
+    free = n - 1
+    block = 1 << min(free, 14)
+    n_blocks = (1 << free) // block
+    low = np.arange(block, dtype=np.int64)
+    for b in range(n_blocks):
+        codes = (b * block + low)[:, None]
+        bits = (codes >> np.arange(free, dtype=np.int64)) & 1          # (block, n-1)
+        sides = np.concatenate([np.ones((block, 1), dtype=np.int8),
+                                np.where(bits == 1, -1, 1).astype(np.int8)], axis=1)
+        values = (sides[:, i] != sides[:, j]).astype(np.float64) @ w
+        k = int(np.argmax(values))
+        if values[k] > best_value:
+            best_value = float(values[k])
+            best_sides = sides[k].copy()
+    return best_value, best_sides
+
