@@ -1,0 +1,1069 @@
+"""Reading images, masks and seed markers; writing results atomically.
+
+This module (with :mod:`segcut.batch`) is the only part of the engine that touches the
+file system. Every reader turns a bad file into one :class:`~segcut.errors.InputError`
+whose message is one line naming the file and the problem; every writer writes to a
+temporary file in the target's folder and moves it into place with :func:`os.replace`,
+so a target is either the old file or the complete new one, never half written.
+
+Reading
+-------
+:func:`read_image` reads PNG, JPEG, TIFF and BMP files (the format is recognised by
+the file's content, not its name) and returns an :class:`ImageData`:
+
+===================  ================================================================
+stored as            returned array
+===================  ================================================================
+gray (L, 1-bit)      ``(M, N)`` uint8 (1-bit pixels become 0 / 255)
+gray 16-bit          ``(M, N)`` uint16 (PNG ``I;16`` and TIFF)
+gray + alpha         ``(M, N)``; the alpha channel is dropped (see below)
+RGB, YCbCr, ...      ``(M, N, 3)`` uint8 (or uint16 from TIFF)
+RGBA                 ``(M, N, 3)``; the alpha channel is dropped
+palette (P)          ``(M, N, 3)`` uint8, the palette applied
+CMYK                 ``(M, N, 3)`` uint8, converted by Pillow's plain formula
+float TIFF           ``(M, N[, 3])`` float32 or float64 (float16 becomes float32)
+multi-page TIFF      ``(P, M, N[, 3])``: a 3-D stack, one page per plane
+===================  ================================================================
+
+Rules, in one place:
+
+- **Orientation**: the EXIF orientation tag (JPEG, and any other file that carries
+  one) is applied, so the array is the picture as a person sees it.
+- **Alpha** is dropped, not composited: each pixel keeps its stored colour. When some
+  pixels are not fully opaque a note is added to :attr:`ImageData.warnings`.
+- **Pixel limit**: images with more than :data:`MAX_PIXELS` pixels (all pages of a
+  stack together) are refused before they are decoded, as a guard against
+  decompression bombs. Pass ``max_pixels=`` to change it.
+- **Non-finite values** (float images): an image with no finite value is refused; when
+  only some values are NaN or infinite they are replaced by the median of the finite
+  values of the same channel, and a note is added to the warnings.
+- **Integer TIFF** of other widths: signed or 32-bit integers that fit in 0..65535
+  become uint16, others float64; booleans become uint8 0 / 255.
+- **16-bit colour PNG** is read at 8 bits per channel (a Pillow limitation); a note
+  says so.
+- An image with no contrast at all is *not* an error here (the pipeline decides).
+
+Notes collected while reading are returned in :attr:`ImageData.warnings`; nothing is
+emitted through :mod:`warnings`, so the caller decides how to report them.
+
+:func:`read_mask` reads a two-region mask (ours, or a reference) as a boolean array,
+and :func:`read_seeds` reads a marker image into the labels 0 unknown, 1 foreground,
+2 background.
+
+Writing
+-------
+:func:`write_mask`, :func:`write_image`, :func:`write_overlay` and
+:func:`write_text_atomic` replace their target atomically; :func:`append_line` and
+:func:`append_json_line` add one whole line to a log such as ``records.jsonl``; and
+:func:`atomic_path` gives the same temp-file-then-replace guarantee to any writer.
+PNG files are written with fixed options and no metadata, TIFF files without dates,
+so the same array always gives the same bytes.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import math
+import os
+import secrets
+import warnings
+import zlib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Iterator
+
+import numpy as np
+
+from .errors import InputError
+
+__all__ = [
+    "IMAGE_SUFFIXES",
+    "MAX_PIXELS",
+    "SEED_UNKNOWN",
+    "SEED_FOREGROUND",
+    "SEED_BACKGROUND",
+    "OVERLAY_LINE_COLOR",
+    "OVERLAY_HALO_COLOR",
+    "ImageData",
+    "read_image",
+    "read_mask",
+    "read_seeds",
+    "is_image_path",
+    "atomic_path",
+    "write_bytes_atomic",
+    "write_text_atomic",
+    "write_image",
+    "write_mask",
+    "write_overlay",
+    "overlay_image",
+    "append_line",
+    "append_json_line",
+    "read_json_lines",
+]
+
+#: File name endings of the image types :func:`read_image` reads (lower case), for
+#: folder scans. Reading itself recognises the format by content.
+IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
+
+#: Largest number of pixels (all pages together) :func:`read_image` accepts by default:
+#: 64 megapixels, a guard against decompression bombs.
+MAX_PIXELS = 64 * 2**20
+
+#: Labels of a seed array (:func:`read_seeds`).
+SEED_UNKNOWN, SEED_FOREGROUND, SEED_BACKGROUND = 0, 1, 2
+
+#: Overlay boundary colours (RGB): an amber line with a dark halo on its outer side,
+#: so the boundary reads on dark and on light images alike.
+OVERLAY_LINE_COLOR = (255, 176, 0)
+OVERLAY_HALO_COLOR = (24, 16, 48)
+
+# Pillow format names we read (MPO is Pillow's name for JPEGs with several pictures).
+_PIL_FORMATS = {"PNG": "PNG", "JPEG": "JPEG", "MPO": "JPEG", "BMP": "BMP", "DIB": "BMP"}
+_TIFF_MAGIC = (b"II*\x00", b"MM\x00*", b"II+\x00", b"MM\x00+")
+
+
+@dataclass(frozen=True, eq=False)
+class ImageData:
+    """An image as read from a file.
+
+    Attributes
+    ----------
+    array : (M, N[, C]) or (P, M, N[, C]) ndarray
+        The pixels: uint8, uint16, float32 or float64. ``C`` is 3 (RGB) when present;
+        a leading ``P`` axis holds the pages of a multi-page TIFF.
+    channel_axis : int or None
+        ``-1`` for colour images, None for gray ones (scikit-image's convention).
+    path : str or None
+        The file, as given to the reader.
+    format : str
+        ``"PNG"``, ``"JPEG"``, ``"TIFF"`` or ``"BMP"``.
+    mode : str
+        How the pixels were stored: a Pillow mode (``"L"``, ``"RGB"``, ``"RGBA"``,
+        ``"P"``, ``"CMYK"``, ``"I;16"``...) or, for TIFF, ``"<photometric> <dtype>"``
+        such as ``"minisblack uint16"``.
+    warnings : tuple of str
+        Notes on what reading changed or could not keep (alpha dropped, values
+        replaced...). Empty for a plain image.
+
+    Examples
+    --------
+    >>> data = ImageData(np.zeros((2, 3), np.uint8), None, None, "PNG", "L", ())
+    >>> data
+    ImageData(shape=(2, 3), dtype=uint8, channel_axis=None, format='PNG', mode='L', path=None)
+    >>> data.is_stack, data.spatial_shape
+    (False, (2, 3))
+    """
+
+    array: np.ndarray
+    channel_axis: int | None
+    path: str | None
+    format: str
+    mode: str
+    warnings: tuple = ()
+
+    @property
+    def dtype(self) -> np.dtype:
+        """The dtype of :attr:`array`."""
+        return self.array.dtype
+
+    @property
+    def spatial_shape(self) -> tuple:
+        """The shape without the channel axis: ``(M, N)`` or ``(P, M, N)``."""
+        shape = self.array.shape
+        return tuple(shape[:-1]) if self.channel_axis is not None else tuple(shape)
+
+    @property
+    def is_stack(self) -> bool:
+        """True for a 3-D stack (multi-page TIFF)."""
+        return len(self.spatial_shape) == 3
+
+    def __repr__(self) -> str:
+        return (
+            f"ImageData(shape={self.array.shape}, dtype={self.array.dtype}, "
+            f"channel_axis={self.channel_axis}, format={self.format!r}, mode={self.mode!r}, "
+            f"path={self.path!r})"
+        )
+
+
+# ----------------------------------------------------------------------------- reading
+
+
+def is_image_path(path) -> bool:
+    """True when the file name ends in one of :data:`IMAGE_SUFFIXES` (any case).
+
+    Examples
+    --------
+    >>> is_image_path("scan_01.TIF"), is_image_path("notes.txt")
+    (True, False)
+    """
+    return Path(path).suffix.lower() in IMAGE_SUFFIXES
+
+
+def read_image(path, *, max_pixels: int = MAX_PIXELS) -> ImageData:
+    """Read an image file (PNG, JPEG, TIFF, BMP) into an array.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file. Its format is recognised by content, not by its name.
+    max_pixels : int, optional
+        Refuse images with more pixels than this (all pages together) before
+        decoding them. Default :data:`MAX_PIXELS`.
+
+    Returns
+    -------
+    ImageData
+        The pixels and how they were stored; see the module notes for the rules
+        (orientation applied, alpha dropped, palette and CMYK turned into RGB...).
+
+    Raises
+    ------
+    InputError
+        One line naming the file and the problem: missing or unreadable file, empty
+        file, not an image, unsupported format or dimensions, truncated or corrupt
+        data, too many pixels, or no finite value.
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> folder = tempfile.mkdtemp()
+    >>> write_image(np.array([[0, 128], [255, 64]], np.uint8), os.path.join(folder, "tiny.png"))
+    >>> data = read_image(os.path.join(folder, "tiny.png"))
+    >>> data.array
+    array([[  0, 128],
+           [255,  64]], dtype=uint8)
+    >>> data.format, data.mode, data.channel_axis
+    ('PNG', 'L', None)
+    """
+    if not isinstance(max_pixels, (int, np.integer)) or max_pixels < 1:
+        raise ValueError(f"max_pixels must be a positive integer, got {max_pixels!r}")
+    head = _open_check(path)
+    if head[:4] in _TIFF_MAGIC:
+        return _read_tiff(path, int(max_pixels))
+    return _read_with_pillow(path, int(max_pixels), head)
+
+
+def _open_check(path) -> bytes:
+    """The first bytes of ``path``; one-line errors for missing, empty or unreadable files."""
+    p = Path(path)
+    try:
+        with open(p, "rb") as f:
+            head = f.read(32)
+    except FileNotFoundError:
+        raise InputError("no such file", path=path) from None
+    except IsADirectoryError:
+        raise InputError("is a folder, not an image file", path=path) from None
+    except PermissionError:
+        raise InputError("permission denied", path=path) from None
+    except OSError as err:
+        raise InputError(f"cannot read the file ({err.strerror or err})", path=path) from None
+    if not head:
+        raise InputError("empty file (0 bytes)", path=path)
+    return head
+
+
+def _too_many(n_pixels: int, max_pixels: int, path, shape) -> None:
+    if n_pixels > max_pixels:
+        raise InputError(
+            f"image of {n_pixels} pixels (shape {tuple(shape)}) exceeds the limit of "
+            f"{max_pixels} pixels (a guard against decompression bombs; raise max_pixels "
+            "to read it)",
+            path=path,
+        )
+
+
+def _read_with_pillow(path, max_pixels: int, head: bytes) -> ImageData:
+    from PIL import Image, ImageOps, UnidentifiedImageError
+
+    notes: list[str] = []
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            img = Image.open(path)
+        except Image.DecompressionBombError as err:
+            raise InputError(
+                f"image exceeds the pixel limit ({_one_line(err)}); refused as a possible "
+                "decompression bomb",
+                path=path,
+            ) from None
+        except UnidentifiedImageError:
+            raise InputError(
+                "not an image file, or a format segcut does not read "
+                "(PNG, JPEG, TIFF and BMP are read)",
+                path=path,
+            ) from None
+        except (OSError, SyntaxError, ValueError, EOFError) as err:
+            raise InputError(
+                f"truncated or corrupt image data ({_one_line(err)})", path=path
+            ) from None
+        with img:
+            fmt = _PIL_FORMATS.get(img.format or "")
+            if fmt is None:
+                raise InputError(
+                    f"unsupported image format {img.format} (PNG, JPEG, TIFF and BMP are read)",
+                    path=path,
+                )
+            width, height = img.size
+            if width < 1 or height < 1:
+                raise InputError(f"image has no pixels (size {width}x{height})", path=path)
+            _too_many(width * height, max_pixels, path, (height, width))
+            n_frames = getattr(img, "n_frames", 1)
+            if n_frames > 1:
+                notes.append(f"file holds {n_frames} pictures; the first was read")
+            mode = img.mode
+            if fmt == "PNG" and len(head) >= 26 and head[12:16] == b"IHDR":
+                if head[24] == 16 and head[25] in (2, 6):
+                    notes.append("16-bit colour PNG read at 8 bits per channel")
+            try:
+                img.load()  # force the full decode: truncated data fails here
+                img = ImageOps.exif_transpose(img)
+                array, channel_axis = _pillow_to_array(img, notes)
+            except (OSError, SyntaxError, ValueError, EOFError, zlib.error) as err:
+                raise InputError(
+                    f"truncated or corrupt image data ({_one_line(err)})", path=path
+                ) from None
+    for w in caught:
+        if issubclass(w.category, Image.DecompressionBombWarning):
+            continue
+        notes.append(_one_line(w.message))
+    return ImageData(array, channel_axis, _as_str(path), fmt, mode, tuple(notes))
+
+
+def _pillow_to_array(img, notes: list) -> tuple[np.ndarray, int | None]:
+    mode = img.mode
+    if mode == "1":
+        return np.asarray(img, dtype=np.uint8) * np.uint8(255), None
+    if mode == "L":
+        return np.array(img, dtype=np.uint8), None
+    if mode.startswith("I;16"):
+        return np.asarray(img).astype(np.uint16), None
+    if mode == "I":
+        return _integer_to_supported(np.asarray(img)), None
+    if mode == "F":
+        return np.array(img, dtype=np.float32), None
+    if mode in ("LA", "La", "PA", "RGBA", "RGBa") or (mode == "P" and "transparency" in img.info):
+        rgba = img.convert("LA" if mode in ("LA", "La") else "RGBA")
+        values = np.asarray(rgba)
+        alpha = values[..., -1]
+        if (alpha < 255).any():
+            share = float((alpha < 255).mean())
+            notes.append(f"alpha channel dropped ({100 * share:.1f}% of pixels not fully opaque)")
+        if mode in ("LA", "La"):
+            return np.ascontiguousarray(values[..., 0]), None
+        return np.ascontiguousarray(values[..., :3]), -1
+    if mode == "RGB":
+        return np.array(img, dtype=np.uint8), -1
+    # P, CMYK, YCbCr, LAB, HSV, RGBX...: Pillow's own conversion to RGB
+    return np.array(img.convert("RGB"), dtype=np.uint8), -1
+
+
+def _integer_to_supported(values: np.ndarray) -> np.ndarray:
+    """Other integer dtypes: uint16 when the values fit in 0..65535, else float64."""
+    if values.dtype == np.uint8 or values.dtype == np.uint16:
+        return np.ascontiguousarray(values.astype(values.dtype.newbyteorder("=")))
+    if values.dtype == np.bool_:
+        return values.astype(np.uint8) * np.uint8(255)
+    if values.size and values.min() >= 0 and values.max() <= 65535:
+        return values.astype(np.uint16)
+    return values.astype(np.float64)
+
+
+def _read_tiff(path, max_pixels: int) -> ImageData:
+    import tifffile
+
+    notes: list[str] = []
+    try:
+        with tifffile.TiffFile(path) as tif:
+            if not tif.series:
+                raise InputError("TIFF file holds no image", path=path)
+            series = tif.series[0]
+            if len(tif.series) > 1:
+                notes.append(f"TIFF holds {len(tif.series)} image series; the first was read")
+            axes, shape = series.axes, tuple(series.shape)
+            page = series.pages[0] if series.pages else tif.pages[0]
+            photometric = _photometric_name(page)
+            spatial = [n for a, n in zip(axes, shape) if a != "S"]
+            if 0 in shape:
+                raise InputError(f"image has no pixels (shape {shape})", path=path)
+            _too_many(math.prod(spatial), max_pixels, path, shape)
+            array = series.asarray()
+            colormap = getattr(page, "colormap", None)
+    except InputError:
+        raise
+    except (tifffile.TiffFileError, OSError, ValueError, EOFError, zlib.error,
+            KeyError, IndexError, RuntimeError) as err:
+        raise InputError(f"truncated or corrupt TIFF data ({_one_line(err)})", path=path) from None
+    except MemoryError:
+        raise InputError("TIFF too large to hold in memory", path=path) from None
+
+    array = np.asarray(array)
+    mode = f"{photometric} {array.dtype.name}"
+    if array.dtype.kind == "c":
+        raise InputError(f"complex-valued TIFF ({array.dtype}) is not an image segcut reads", path=path)
+    # move the samples axis last, squeeze unit axes, keep at most one stack axis
+    if "S" in axes:
+        array = np.moveaxis(array, axes.index("S"), -1)
+        axes = axes.replace("S", "") + "S"
+    keep = [i for i, a in enumerate(axes) if a in "YXS" or array.shape[i] > 1]
+    array = array.reshape([array.shape[i] for i in keep])
+    axes = "".join(axes[i] for i in keep)
+    core = axes.replace("S", "")
+    if not core.endswith("YX") or len(core) > 3:
+        raise InputError(
+            f"unsupported TIFF dimensions (axes {series.axes}, shape {shape}); segcut reads "
+            "2-D images and 3-D stacks, gray or colour",
+            path=path,
+        )
+    has_samples = axes.endswith("S")
+
+    if photometric == "palette" and colormap is not None and not has_samples:
+        cmap = np.asarray(colormap)
+        if cmap.ndim == 2 and cmap.shape[0] == 3:
+            index = np.clip(array.astype(np.int64), 0, cmap.shape[1] - 1)
+            array = np.moveaxis(cmap[:, index], 0, -1)
+            if array.dtype == np.uint16 and cmap.max() <= 255:
+                array = array.astype(np.uint8)
+            has_samples = True
+    if photometric == "miniswhite" and not has_samples:
+        array = _invert(array)
+
+    channel_axis = None
+    if has_samples:
+        n_channels = array.shape[-1]
+        if n_channels == 1:
+            array = array[..., 0]
+        elif n_channels == 2:
+            notes.append("alpha channel dropped (gray + alpha TIFF)")
+            array = array[..., 0]
+        elif photometric == "separated" and n_channels == 4:
+            array = _cmyk_to_rgb(array)
+            channel_axis = -1
+        elif n_channels in (3, 4):
+            if n_channels == 4:
+                notes.append("fourth channel (alpha) dropped")
+            array = array[..., :3]
+            channel_axis = -1
+        else:
+            raise InputError(
+                f"unsupported TIFF with {n_channels} channels per pixel (1 to 4 are read)",
+                path=path,
+            )
+    array = _normalise_dtype(array, path, notes)
+    return ImageData(np.ascontiguousarray(array), channel_axis, _as_str(path), "TIFF", mode,
+                     tuple(notes))
+
+
+def _photometric_name(page) -> str:
+    value = getattr(page, "photometric", None)
+    name = getattr(value, "name", None)
+    return name.lower() if name else str(value).lower()
+
+
+def _invert(array: np.ndarray) -> np.ndarray:
+    if array.dtype.kind in "ui":
+        return np.iinfo(array.dtype).max - array
+    finite = array[np.isfinite(array)]
+    return (finite.max() if finite.size else 0) - array
+
+
+def _cmyk_to_rgb(array: np.ndarray) -> np.ndarray:
+    """Plain CMYK -> RGB: ``R = (1 - C)(1 - K)`` and so on, in the input's range."""
+    if array.dtype.kind in "ui":
+        top = float(np.iinfo(array.dtype).max)
+    else:
+        top = 1.0
+    cmyk = array.astype(np.float64) / top
+    rgb = (1.0 - cmyk[..., :3]) * (1.0 - cmyk[..., 3:4])
+    if array.dtype.kind in "ui":
+        return np.rint(rgb * top).astype(array.dtype if array.dtype.itemsize <= 2 else np.uint16)
+    return rgb
+
+
+def _normalise_dtype(array: np.ndarray, path, notes: list) -> np.ndarray:
+    """Integers to uint8/uint16 (or float64), floats to float32/64, non-finite values handled."""
+    if array.dtype.kind in "uib":
+        return _integer_to_supported(array)
+    if array.dtype.kind != "f":
+        raise InputError(f"unsupported pixel type {array.dtype}", path=path)
+    if array.dtype.itemsize < 4:
+        array = array.astype(np.float32)
+    elif array.dtype.itemsize > 8:
+        array = array.astype(np.float64)
+    array = array.astype(array.dtype.newbyteorder("="), copy=False)
+    finite = np.isfinite(array)
+    if finite.all():
+        return array
+    if not finite.any():
+        raise InputError("image has no finite value (all NaN or infinite)", path=path)
+    array = array.copy()
+    bad = ~finite
+    if array.ndim >= 3 and bad.ndim == array.ndim and array.shape[-1] in (3,):
+        channels = range(array.shape[-1])
+        for c in channels:
+            plane, ok = array[..., c], finite[..., c]
+            fill = np.median(plane[ok]) if ok.any() else np.median(array[finite])
+            plane[~ok] = fill
+    else:
+        array[bad] = np.median(array[finite])
+    notes.append(
+        f"{int(bad.sum())} NaN or infinite values ({100 * float(bad.mean()):.2f}%) replaced by "
+        "the median of the finite values"
+    )
+    return array
+
+
+def _gray_levels(data: ImageData) -> np.ndarray:
+    """One value per pixel: gray as is, colour reduced by the channel maximum."""
+    array = data.array
+    if data.channel_axis is not None:
+        array = array.max(axis=-1)
+    return array
+
+
+def read_mask(path, *, threshold: float | None = None, max_pixels: int = MAX_PIXELS) -> np.ndarray:
+    """Read a two-region mask as a boolean array (True = foreground).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        A mask image (any format :func:`read_image` reads; multi-page TIFF gives a
+        3-D mask). Colour masks are reduced to their largest channel per pixel.
+    threshold : float, optional
+        Foreground is ``value > threshold``. By default: a mask with at most two
+        values, one of them 0 (segcut's own 0 / 255 masks, 0 / 1 label images), has
+        foreground wherever it is not 0; any other mask (a JPEG reference with
+        compression noise, a soft mask) is cut at half its type's full range: 127.5
+        for 8-bit, 32767.5 for 16-bit, and half of ``max(1, largest value)`` for
+        float masks.
+    max_pixels : int, optional
+        As in :func:`read_image`.
+
+    Returns
+    -------
+    (M, N) or (P, M, N) bool ndarray
+
+    Raises
+    ------
+    InputError
+        The file cannot be read as an image (see :func:`read_image`).
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> path = os.path.join(tempfile.mkdtemp(), "mask.png")
+    >>> write_mask(np.array([[0, 1], [1, 0]], bool), path)
+    >>> read_mask(path)
+    array([[False,  True],
+           [ True, False]])
+    """
+    values = _gray_levels(read_image(path, max_pixels=max_pixels))
+    if threshold is not None:
+        threshold = float(threshold)
+        if not math.isfinite(threshold):
+            raise ValueError(f"threshold must be a finite number, got {threshold!r}")
+        return np.ascontiguousarray(values > threshold)
+    levels = np.unique(values)
+    if levels.size <= 2 and levels[0] == 0:
+        return np.ascontiguousarray(values != 0)
+    if values.dtype.kind in "ui":
+        cut = np.iinfo(values.dtype).max / 2.0
+    else:
+        cut = max(1.0, float(levels[-1])) / 2.0
+    return np.ascontiguousarray(values > cut)
+
+
+def read_seeds(path, *, max_pixels: int = MAX_PIXELS) -> np.ndarray:
+    """Read a seed marker image into labels 0 unknown, 1 foreground, 2 background.
+
+    Two kinds of file are understood:
+
+    - **Label images**: every value is 0, 1 or 2 (gray, any integer type). The values
+      are the labels: 0 unknown, 1 foreground, 2 background.
+    - **Drawn markers**: anything else. Each pixel's brightness (the largest colour
+      channel, scaled to 0..1 by the type's range) decides: dark (below 1/4) is
+      unknown, mid-tones (1/4 to 3/4) are background, light (above 3/4) is
+      foreground. Draw foreground in white and background in mid-gray on a black
+      canvas.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The marker image; it must have the same height and width as the image it
+        belongs to (checked by the pipeline).
+    max_pixels : int, optional
+        As in :func:`read_image`.
+
+    Returns
+    -------
+    (M, N) or (P, M, N) uint8 ndarray
+        :data:`SEED_UNKNOWN` (0), :data:`SEED_FOREGROUND` (1) or
+        :data:`SEED_BACKGROUND` (2) per pixel.
+
+    Raises
+    ------
+    InputError
+        The file cannot be read as an image (see :func:`read_image`).
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> path = os.path.join(tempfile.mkdtemp(), "marks.png")
+    >>> write_image(np.array([[0, 128, 255]], np.uint8), path)
+    >>> read_seeds(path)
+    array([[0, 2, 1]], dtype=uint8)
+    """
+    data = read_image(path, max_pixels=max_pixels)
+    values = _gray_levels(data)
+    if data.channel_axis is None and values.dtype.kind in "ui" and values.size:
+        if int(values.max()) <= 2:
+            return values.astype(np.uint8)
+    if values.dtype.kind in "ui":
+        scaled = values.astype(np.float64) / np.iinfo(values.dtype).max
+    else:
+        top = float(values.max())
+        scaled = values.astype(np.float64) / (top if top > 1.0 else 1.0)
+    labels = np.full(values.shape, SEED_UNKNOWN, dtype=np.uint8)
+    labels[scaled >= 0.25] = SEED_BACKGROUND
+    labels[scaled > 0.75] = SEED_FOREGROUND
+    return labels
+
+
+# ----------------------------------------------------------------------------- writing
+
+
+@contextlib.contextmanager
+def atomic_path(path) -> Iterator[Path]:
+    """Write a file through a temporary name, then move it into place in one step.
+
+    Yields a temporary path in the target's folder (created if needed; same suffix as
+    the target, so writers that look at the suffix still work). When the block ends
+    normally the file is flushed to disk and renamed over ``path`` with
+    :func:`os.replace`; when the block raises, the temporary file is removed, the
+    target is left as it was and the exception propagates.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The final file.
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> target = os.path.join(tempfile.mkdtemp(), "notes.txt")
+    >>> with atomic_path(target) as tmp:
+    ...     _ = tmp.write_text("done")
+    >>> Path(target).read_text(), os.listdir(os.path.dirname(target))
+    ('done', ['notes.txt'])
+    """
+    target = Path(path)
+    folder = target.parent
+    folder.mkdir(parents=True, exist_ok=True)
+    tmp = folder / f".{target.stem}.{os.getpid()}-{secrets.token_hex(4)}.tmp{target.suffix}"
+    # created empty with the usual permissions (0o666 minus the umask), exclusively
+    os.close(os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666))
+    try:
+        yield tmp
+        fd = os.open(tmp, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+        os.replace(tmp, target)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise
+
+
+def write_bytes_atomic(path, data: bytes) -> None:
+    """Replace ``path`` with ``data`` atomically (see :func:`atomic_path`)."""
+    with atomic_path(path) as tmp:
+        with open(tmp, "wb") as f:
+            f.write(data)
+
+
+def write_text_atomic(path, text: str) -> None:
+    """Replace ``path`` with ``text`` (UTF-8) atomically (see :func:`atomic_path`).
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> target = os.path.join(tempfile.mkdtemp(), "run.toml")
+    >>> write_text_atomic(target, "seed = 0\\n")
+    >>> Path(target).read_text()
+    'seed = 0\\n'
+    """
+    write_bytes_atomic(path, str(text).encode("utf-8"))
+
+
+def _png_bytes(array: np.ndarray) -> bytes:
+    """PNG with fixed options and no metadata: the same array gives the same bytes."""
+    import io as _io
+
+    from PIL import Image
+
+    if array.dtype == np.uint16:
+        if array.ndim != 2:
+            raise ValueError("16-bit PNG is written for gray images only; use a .tif name")
+        img = Image.fromarray(np.ascontiguousarray(array, dtype=np.uint16))
+    else:
+        img = Image.fromarray(np.ascontiguousarray(array, dtype=np.uint8))
+    buffer = _io.BytesIO()
+    img.save(buffer, format="PNG", optimize=False, compress_level=6)
+    return buffer.getvalue()
+
+
+def write_image(array, path, *, channel_axis: int | None = None) -> None:
+    """Write an image array atomically with reproducible bytes.
+
+    ``.png`` files take 2-D gray uint8/uint16 or ``(M, N, 3)`` RGB uint8 arrays;
+    ``.tif``/``.tiff`` files also take float arrays and 3-D stacks ``(P, M, N[, 3])``.
+
+    Parameters
+    ----------
+    array : ndarray
+        The pixels. Boolean arrays are written as 0 / 255.
+    path : str or os.PathLike
+        The file; its suffix chooses the format.
+    channel_axis : int or None, optional
+        Axis holding RGB channels (moved last); None for gray images and stacks.
+
+    Raises
+    ------
+    ValueError
+        Unsupported suffix, shape or dtype for the chosen format.
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> path = os.path.join(tempfile.mkdtemp(), "gray.png")
+    >>> write_image(np.array([[7, 9]], np.uint8), path)
+    >>> read_image(path).array
+    array([[7, 9]], dtype=uint8)
+    """
+    array = np.asarray(array)
+    if channel_axis is not None:
+        array = np.moveaxis(array, channel_axis, -1)
+        if array.shape[-1] != 3:
+            raise ValueError(f"expected 3 channels along channel_axis, got {array.shape[-1]}")
+    if array.dtype == np.bool_:
+        array = array.astype(np.uint8) * np.uint8(255)
+    suffix = Path(path).suffix.lower()
+    colour = channel_axis is not None
+    spatial = array.ndim - (1 if colour else 0)
+    if array.size == 0:
+        raise ValueError(f"cannot write an empty image (shape {array.shape})")
+    if suffix == ".png":
+        if spatial != 2:
+            raise ValueError(f"PNG holds 2-D images; got shape {array.shape}; use a .tif name for stacks")
+        if array.dtype not in (np.uint8, np.uint16):
+            raise ValueError(f"PNG takes uint8 or uint16 pixels, got {array.dtype}; use a .tif name")
+        if colour and array.dtype != np.uint8:
+            raise ValueError("colour PNG takes uint8 pixels; use a .tif name for 16-bit colour")
+        write_bytes_atomic(path, _png_bytes(array))
+    elif suffix in (".tif", ".tiff"):
+        if spatial not in (2, 3):
+            raise ValueError(f"expected a 2-D image or a 3-D stack, got shape {array.shape}")
+        import tifffile
+
+        with atomic_path(path) as tmp:
+            tifffile.imwrite(tmp, np.ascontiguousarray(array),
+                             photometric="rgb" if colour else "minisblack",
+                             metadata=None, software=None, datetime=None, compression="zlib")
+    else:
+        raise ValueError(f"unsupported image suffix {suffix!r} for writing (use .png or .tif)")
+
+
+def _mask_uint8(mask) -> np.ndarray:
+    mask = np.asarray(mask)
+    if mask.dtype != np.bool_:
+        if mask.dtype.kind not in "uif":
+            raise ValueError(f"mask must be boolean or numeric, got dtype {mask.dtype}")
+        mask = mask != 0
+    return mask.astype(np.uint8) * np.uint8(255)
+
+
+def write_mask(mask, path) -> None:
+    """Write a two-region mask atomically: 0 background, 255 foreground.
+
+    A 2-D mask is written as an 8-bit gray PNG (or TIFF when ``path`` ends in
+    ``.tif``/``.tiff``); a 3-D mask ``(P, M, N)`` must go to a TIFF, one page per plane.
+
+    Parameters
+    ----------
+    mask : (M, N) or (P, M, N) array_like
+        Boolean, or numbers where anything other than 0 is foreground.
+    path : str or os.PathLike
+        The file.
+
+    Raises
+    ------
+    ValueError
+        Wrong number of dimensions, or a 3-D mask given a ``.png`` name.
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> path = os.path.join(tempfile.mkdtemp(), "m.png")
+    >>> write_mask([[0, 3], [0, 0]], path)
+    >>> read_image(path).array
+    array([[  0, 255],
+           [  0,   0]], dtype=uint8)
+    """
+    values = _mask_uint8(mask)
+    if values.ndim not in (2, 3):
+        raise ValueError(f"mask must be 2-D or 3-D, got shape {values.shape}")
+    suffix = Path(path).suffix.lower()
+    if values.ndim == 3 and suffix == ".png":
+        raise ValueError(f"a 3-D mask (shape {values.shape}) is written as TIFF; use a .tif name")
+    write_image(values, path)
+
+
+def _display_uint8(image: np.ndarray) -> np.ndarray:
+    """Any image to uint8 for display: uint8 as is, others stretched between the
+    0.5th and 99.5th percentiles of their finite values (flat images become mid-gray)."""
+    if image.dtype == np.uint8:
+        return image
+    if image.dtype == np.bool_:
+        return image.astype(np.uint8) * np.uint8(255)
+    values = image.astype(np.float64)
+    finite = np.isfinite(values)
+    if not finite.any():
+        return np.full(image.shape, 128, np.uint8)
+    low, high = np.percentile(values[finite], [0.5, 99.5])
+    if not high > low:
+        low, high = float(values[finite].min()), float(values[finite].max())
+    if not high > low:
+        return np.full(image.shape, 128, np.uint8)
+    scaled = (np.where(finite, values, low) - low) * (255.0 / (high - low))
+    return np.rint(np.clip(scaled, 0.0, 255.0)).astype(np.uint8)
+
+
+def _as_rgb_and_mask(image, mask, channel_axis):
+    image = np.asarray(image)
+    mask = np.asarray(mask)
+    if mask.dtype != np.bool_:
+        mask = mask != 0
+    if channel_axis is not None:
+        image = np.moveaxis(image, channel_axis, -1)
+    elif image.ndim == mask.ndim + 1:
+        channel_axis = -1
+    if channel_axis is None:
+        if image.shape != mask.shape:
+            raise ValueError(f"mask shape {mask.shape} does not match image shape {image.shape}")
+        gray = _display_uint8(image)
+        rgb = np.repeat(gray[..., None], 3, axis=-1)
+    else:
+        if image.shape[:-1] != mask.shape:
+            raise ValueError(
+                f"mask shape {mask.shape} does not match image shape {image.shape[:-1]} "
+                "(channels last)"
+            )
+        n_channels = image.shape[-1]
+        if n_channels in (1, 2):
+            image = np.repeat(image[..., :1], 3, axis=-1)
+        elif n_channels in (3, 4):
+            image = image[..., :3]
+        else:
+            raise ValueError(f"overlay takes 1 to 4 channels, got {n_channels}")
+        rgb = _display_uint8(image)
+    if mask.ndim not in (2, 3):
+        raise ValueError(f"mask must be 2-D or 3-D, got shape {mask.shape}")
+    return np.array(rgb, dtype=np.uint8), mask
+
+
+def overlay_image(image, mask, *, channel_axis: int | None = None) -> np.ndarray:
+    """The mask's boundary drawn over the image, as an RGB uint8 array.
+
+    The boundary is a line of :data:`OVERLAY_LINE_COLOR` (amber) just inside the
+    foreground with a halo of :data:`OVERLAY_HALO_COLOR` (near black) just outside
+    it, so it stays visible on dark and on light images. Lines are
+    ``max(1, round(min(M, N) / 256))`` pixels wide. Images that are not uint8 (16-bit,
+    float, boolean) are stretched for display between the 0.5th and 99.5th percentiles
+    of their values. For a 3-D stack, the planes at 1/4, 1/2 and 3/4 of its depth are
+    shown side by side, 4 pixels apart on a black ground.
+
+    Parameters
+    ----------
+    image : (M, N[, C]) or (P, M, N[, C]) array_like
+        Gray or colour (1-4 channels; alpha ignored).
+    mask : (M, N) or (P, M, N) array_like
+        Foreground where True (or not 0).
+    channel_axis : int or None, optional
+        Colour axis of ``image``; by default inferred (an extra last axis).
+
+    Returns
+    -------
+    (H, W, 3) uint8 ndarray
+
+    Examples
+    --------
+    >>> image = np.zeros((6, 6), np.uint8)
+    >>> mask = np.zeros((6, 6), bool); mask[2:4, 2:4] = True
+    >>> out = overlay_image(image, mask)
+    >>> out.shape, out[2, 2].tolist(), out[1, 2].tolist(), out[0, 0].tolist()
+    ((6, 6, 3), [255, 176, 0], [24, 16, 48], [0, 0, 0])
+    """
+    from scipy import ndimage as ndi
+
+    rgb, mask = _as_rgb_and_mask(image, mask, channel_axis)
+    if mask.ndim == 3:
+        depth = mask.shape[0]
+        planes = sorted({min(depth - 1, (depth * k) // 4) for k in (1, 2, 3)})
+        tiles = [overlay_image(rgb[p], mask[p]) for p in planes]
+        gap = np.zeros((tiles[0].shape[0], 4, 3), np.uint8)
+        parts = []
+        for tile in tiles:
+            parts.extend([tile, gap])
+        return np.concatenate(parts[:-1], axis=1)
+    width = max(1, int(round(min(mask.shape) / 256)))
+    structure = ndi.generate_binary_structure(2, 1)
+    inner = mask & ~ndi.binary_erosion(mask, structure, iterations=width, border_value=1)
+    outer = ndi.binary_dilation(mask, structure, iterations=width) & ~mask
+    rgb[outer] = OVERLAY_HALO_COLOR
+    rgb[inner] = OVERLAY_LINE_COLOR
+    return rgb
+
+
+def write_overlay(image, mask, path, *, channel_axis: int | None = None) -> None:
+    """Write :func:`overlay_image` as an RGB PNG, atomically.
+
+    Parameters
+    ----------
+    image, mask, channel_axis
+        As in :func:`overlay_image`.
+    path : str or os.PathLike
+        The ``.png`` file.
+    """
+    if Path(path).suffix.lower() != ".png":
+        raise ValueError(f"overlays are written as PNG; got {Path(path).name!r}")
+    write_image(overlay_image(image, mask, channel_axis=channel_axis), path, channel_axis=-1)
+
+
+def append_line(path, line: str) -> None:
+    """Append one whole line to a text file, safely shared between processes.
+
+    The line and its newline go out in a single ``os.write`` on a file opened with
+    ``O_APPEND`` and are flushed to disk, so concurrent writers never interleave
+    within a line and a crash leaves at most one incomplete last line (which
+    :func:`read_json_lines` ignores).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file (created if missing, with its folder).
+    line : str
+        The text, without a line break.
+
+    Raises
+    ------
+    ValueError
+        The text contains a line break.
+    """
+    text = str(line)
+    if "\n" in text or "\r" in text:
+        raise ValueError("append_line writes one line; the text contains a line break")
+    data = (text + "\n").encode("utf-8")
+    target = Path(path)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd = os.open(target, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o666)
+    try:
+        written = os.write(fd, data)
+        while written < len(data):  # regular files take it in one go; be safe anyway
+            written += os.write(fd, data[written:])
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def _json_ready(value):
+    """numpy scalars/arrays, paths and non-finite floats made JSON-ready."""
+    if isinstance(value, dict):
+        return {str(k): _json_ready(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_json_ready(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return _json_ready(value.tolist())
+    if isinstance(value, (np.bool_,)):
+        return bool(value)
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        value = float(value)
+        return value if math.isfinite(value) else None
+    if isinstance(value, os.PathLike):
+        return os.fspath(value)
+    return value
+
+
+def append_json_line(path, record: dict) -> None:
+    """Append ``record`` as one line of JSON (see :func:`append_line`).
+
+    numpy numbers and arrays become plain JSON numbers and lists, paths become
+    strings, and NaN or infinite floats become ``null`` (JSON has no NaN).
+    Keys keep their order.
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> path = os.path.join(tempfile.mkdtemp(), "records.jsonl")
+    >>> append_json_line(path, {"input": "a.png", "value": np.float64(2.5), "gap": float("nan")})
+    >>> Path(path).read_text()
+    '{"input": "a.png", "value": 2.5, "gap": null}\\n'
+    """
+    if not isinstance(record, dict):
+        raise TypeError(f"record must be a dict, got {type(record).__name__}")
+    append_line(path, json.dumps(_json_ready(record), ensure_ascii=False, allow_nan=False))
+
+
+def read_json_lines(path) -> list:
+    """Read a JSON-lines file written by :func:`append_json_line`.
+
+    An incomplete last line (no line break: a writer was interrupted) is ignored;
+    blank lines are skipped. A missing file gives an empty list.
+
+    Raises
+    ------
+    InputError
+        A complete line is not valid JSON (the message names the line).
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> path = os.path.join(tempfile.mkdtemp(), "records.jsonl")
+    >>> append_json_line(path, {"input": "a.png"})
+    >>> with open(path, "a") as f:
+    ...     _ = f.write('{"input": "b.p')
+    >>> read_json_lines(path)
+    [{'input': 'a.png'}]
+    """
+    try:
+        data = Path(path).read_bytes()
+    except FileNotFoundError:
+        return []
+    except OSError as err:
+        raise InputError(f"cannot read the file ({err.strerror or err})", path=path) from None
+    lines = data.split(b"\n")
+    records = []
+    for number, raw in enumerate(lines[:-1], start=1):  # lines[-1] is "" or incomplete
+        if not raw.strip():
+            continue
+        try:
+            records.append(json.loads(raw.decode("utf-8")))
+        except (ValueError, UnicodeDecodeError) as err:
+            raise InputError(f"not a valid JSON line ({_one_line(err)})", path=path,
+                             line=number) from None
+    return records
+
+
+# ----------------------------------------------------------------------------- helpers
+
+
+def _one_line(err) -> str:
+    text = " ".join(str(err).split())
+    return text or type(err).__name__
+
+
+def _as_str(path) -> str | None:
+    return None if path is None else os.fspath(path)
