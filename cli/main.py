@@ -94,6 +94,187 @@ def _run_maxcut(args) -> int:
                   as_json=args.json, sides_path=args.out)
 
 
+# --- score ---------------------------------------------------------------------------
+
+def _add_score_parser(sub) -> None:
+    p = sub.add_parser(
+        "score", help="cut score of given masks on an image's graph, with the certified bound",
+        description="Build the image's signed graph (as 'segcut split' would with the same "
+                    "config), project each mask onto it (each superpixel takes the side most "
+                    "of its pixels are on) and report each mask's cut value, the share of "
+                    "pixels that agree with that projection, the graph's certified upper "
+                    "bound and the gap; masks are ranked by cut value. IMAGE and MASK may be "
+                    "folders: images and masks are then matched by file stem. Mask files: 0 "
+                    "is background, anything else foreground.")
+    p.add_argument("image", metavar="IMAGE", help="an image file, or a folder of images")
+    p.add_argument("masks", metavar="MASK", nargs="+",
+                   help="mask files or folders of masks (matched to images by file stem)")
+    p.add_argument("--config", metavar="FILE", default=None,
+                   help="TOML config used to build the graph (default: the built-in config)")
+    p.add_argument("--seeds", metavar="FILE", default=None,
+                   help="seed marker image, as for 'segcut split' (single image only)")
+    _add_seed_option(p)
+    _add_json_option(p)
+    p.add_argument("--csv", metavar="FILE", default=None, dest="csv_path",
+                   help="also write one row per (image, mask) to this CSV file")
+    p.set_defaults(run=_run_score)
+
+
+def _run_score(args) -> int:
+    from .commands.score import score
+
+    return score(args.image, args.masks, config_path=args.config, seeds_path=args.seeds,
+                 seed=args.seed, as_json=args.json, csv_path=args.csv_path)
+
+
+# --- compare -------------------------------------------------------------------------
+
+def _add_compare_parser(sub) -> None:
+    from segcut.scoring import METRICS
+
+    p = sub.add_parser(
+        "compare", help="agreement of predicted masks with reference masks",
+        description="Compare predicted masks with reference masks: IoU, Dice, precision, "
+                    "recall, boundary F-measure, Hausdorff distance and average symmetric "
+                    "surface distance per image; means with bootstrap 95%% intervals per "
+                    "prediction set; sets ranked side by side, and the best two compared "
+                    "image by image. PRED and REF may be files or folders (matched by file "
+                    "stem; each prediction folder is one set). Masks: 0 is background, "
+                    "anything else foreground; reference masks with more than two values "
+                    "(e.g. JPEG) are cut at half their type's range unless --threshold is "
+                    "given. Unmatched files are listed, not fatal.")
+    p.add_argument("predictions", metavar="PRED", nargs="+",
+                   help="predicted mask files or folders (one set per folder)")
+    p.add_argument("--reference", "-r", metavar="REF", required=True,
+                   help="reference mask file or folder")
+    p.add_argument("--tolerance", type=_non_negative_float, default=2.0, metavar="PX",
+                   help="boundary matching tolerance in pixels (default 2)")
+    p.add_argument("--threshold", type=_finite_float, default=None, metavar="T",
+                   help="reference foreground is value > T (default: see above)")
+    p.add_argument("--rank-by", choices=METRICS, default="iou", metavar="MEASURE",
+                   help=f"measure that ranks the sets: {', '.join(METRICS)} (default iou)")
+    p.add_argument("--per-image", action="store_true", help="also print one row per image")
+    _add_seed_option(p)
+    _add_json_option(p)
+    p.add_argument("--csv", metavar="FILE", default=None, dest="csv_path",
+                   help="also write one row per (set, image) to this CSV file")
+    p.set_defaults(run=_run_compare)
+
+
+def _run_compare(args) -> int:
+    from .commands.compare import compare
+
+    return compare(args.predictions, reference=args.reference, tolerance=args.tolerance,
+                   threshold=args.threshold, rank_by=args.rank_by, seed=args.seed,
+                   per_image=args.per_image, as_json=args.json, csv_path=args.csv_path)
+
+
+def _non_negative_float(text: str) -> float:
+    value = _finite_float(text)
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected a number >= 0, got {text!r}")
+    return value
+
+
+def _finite_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if value != value or value in (float("inf"), float("-inf")):
+        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
+    return value
+
+
+# --- split and report -----------------------------------------------------------------
+
+def _positive_int(text: str) -> int:
+    value = _non_negative_int(text)
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a number >= 1, got {text!r}")
+    return value
+
+
+def _box(text: str) -> tuple:
+    parts = text.split(",")
+    try:
+        box = tuple(int(p) for p in parts)
+    except ValueError:
+        box = ()
+    if len(box) != 4:
+        raise argparse.ArgumentTypeError(f"expected X0,Y0,X1,Y1 (four whole numbers), got {text!r}")
+    return box
+
+
+def _add_split_parser(sub) -> None:
+    p = sub.add_parser(
+        "split", help="split images (files or folders) into foreground and background",
+        description="Split every image under PATH (files, or folders searched recursively) "
+                    "into foreground and background, writing masks/, overlays/, "
+                    "records.jsonl, summary.csv, run.toml and report.html into OUT. "
+                    "Sub-folders are mirrored in masks/ and overlays/. Re-running the same "
+                    "command skips images already finished with the same config and file "
+                    "content; a folder holding another config's results is refused.")
+    p.add_argument("paths", metavar="PATH", nargs="+", help="image files and folders")
+    p.add_argument("-o", "--out", metavar="OUT", required=True, help="the run folder")
+    p.add_argument("--include", metavar="GLOB", action="append", default=[],
+                   help="only files whose relative path or name matches (repeatable)")
+    p.add_argument("--exclude", metavar="GLOB", action="append", default=[],
+                   help="leave out files whose relative path or name matches (repeatable)")
+    p.add_argument("--config", metavar="FILE", default=None,
+                   help="TOML config (the options below override it)")
+    p.add_argument("--prior", metavar="PRIOR", default=None,
+                   help="none, border, center or border,center")
+    p.add_argument("--box", type=_box, default=None, metavar="X0,Y0,X1,Y1",
+                   help="a box known to hold the foreground (pixels; x is the column)")
+    p.add_argument("--seeds", metavar="PATH", default=None,
+                   help="seed marker image, or a folder of them matched by relative path or stem")
+    p.add_argument("--superpixels", type=_positive_int, default=None, metavar="N",
+                   help="number of superpixels (default: chosen from the image size)")
+    p.add_argument("--affinity", metavar="NAME", default=None, help="affinity model")
+    _add_solver_options(p, default_method=None)
+    p.add_argument("--seed", type=_non_negative_int, default=None,
+                   help="random seed (default: the config's, 0); per-image seeds derive from it")
+    p.add_argument("--jobs", "-j", type=_positive_int, default=None, metavar="N",
+                   help="worker processes (default: all cores)")
+    p.add_argument("--force", action="store_true", help="redo images finished by an earlier run")
+    p.add_argument("--quiet", "-q", action="store_true", help="no progress and no summary line")
+    _add_json_option(p)
+    where = p.add_mutually_exclusive_group()
+    where.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                       help="send the work to a Dask distributed scheduler (tcp://host:8786)")
+    where.add_argument("--dask-local", type=_positive_int, default=None, metavar="N",
+                       help="start a local Dask cluster with N worker processes")
+    p.add_argument("--no-report", action="store_true", help="do not write report.html")
+    p.set_defaults(run=_run_split)
+
+
+def _run_split(args) -> int:
+    from .commands.split import split
+
+    return split(args.paths, out=args.out, include=args.include, exclude=args.exclude,
+                 config_path=args.config, prior=args.prior, box=args.box, seeds=args.seeds,
+                 superpixels=args.superpixels, affinity=args.affinity, method=args.method,
+                 time_limit=args.time_limit, seed=args.seed, jobs=args.jobs, force=args.force,
+                 quiet=args.quiet, as_json=args.json, scheduler=args.scheduler,
+                 dask_local=args.dask_local, report=not args.no_report)
+
+
+def _add_report_parser(sub) -> None:
+    p = sub.add_parser("report", help="write the HTML report of a run folder",
+                       description="Write OUT/report.html from the run folder's records and "
+                                   "overlays: one self-contained page, no network needed.")
+    p.add_argument("out", metavar="OUT", help="a run folder written by 'segcut split'")
+    _add_json_option(p)
+    p.set_defaults(run=_run_report)
+
+
+def _run_report(args) -> int:
+    from .commands.report import report
+
+    return report(args.out, as_json=args.json)
+
+
 # --- parser and dispatch --------------------------------------------------------------
 
 def build_parser() -> argparse.ArgumentParser:
@@ -111,6 +292,8 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 _PARSERS = [_add_maxcut_parser]
+_PARSERS += [_add_score_parser, _add_compare_parser]
+_PARSERS += [_add_split_parser, _add_report_parser]
 
 
 def _log_unexpected(exc: BaseException) -> str:
