@@ -1,0 +1,363 @@
+"""The settings of one image split: a frozen dataclass, TOML in and out, a stable hash.
+
+:class:`SplitConfig` holds every option of :func:`segcut.pipeline.split`. It is
+written as TOML with one table per stage (``[superpixels]``, ``[affinity]``,
+``[prior]``, ``[appearance]``, ``[solver]``, ``[cleanup]``) plus the top-level
+``seed``; unknown tables or keys are errors, so a typo never goes unnoticed.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import math
+import os
+import tomllib
+from dataclasses import dataclass, fields
+
+from .errors import ConfigError
+
+__all__ = ["SplitConfig", "load_config", "PRIOR_NAMES", "SECTIONS"]
+
+#: Priors that need no extra input (``box`` and seeds are given separately).
+PRIOR_NAMES = ("border", "center")
+
+#: Table of the TOML file each field lives in ("" = top level).
+SECTIONS = {
+    "n_superpixels": "superpixels",
+    "compactness": "superpixels",
+    "pixel_grid_max_pixels": "superpixels",
+    "affinity": "affinity",
+    "threshold_quantile": "affinity",
+    "smoothness": "affinity",
+    "n_neighbors": "affinity",
+    "prior": "prior",
+    "box": "prior",
+    "prior_strength": "prior",
+    "border_width": "prior",
+    "center_fraction": "prior",
+    "colour_model": "appearance",
+    "n_colour_words": "appearance",
+    "model_rounds": "appearance",
+    "model_strength": "appearance",
+    "method": "solver",
+    "time_limit": "solver",
+    "max_moves": "solver",
+    "fill_holes": "cleanup",
+    "min_region_size": "cleanup",
+    "seed": "",
+}
+
+
+@dataclass(frozen=True)
+class SplitConfig:
+    """Every option of one image split, with defaults that suit photographs.
+
+    Parameters
+    ----------
+    n_superpixels : int or None
+        Target number of SLIC superpixels; None chooses it from the image size (about
+        one per 256 pixels, at least 64 and at most 6000; ~1000 for 512x512).
+    compactness : float
+        SLIC compactness (colour against space, in CIELAB units).
+    pixel_grid_max_pixels : int
+        Images with at most this many pixels (voxels) use every pixel as a vertex
+        (a 4-connected / 6-connected grid graph) instead of superpixels.
+    affinity : str
+        Name of the affinity model turning region distances into signed weights
+        (see :func:`segcut.affinity.available_affinity_models`).
+    threshold_quantile : float
+        Quantile of the neighbour distances where an edge changes sign (0 < q < 1):
+        closer pairs attract, farther pairs repel.
+    smoothness : float
+        Multiplier of the neighbour edges against the appearance (terminal) edges.
+    n_neighbors : int
+        Long-range attractive edges to the k nearest regions in colour space (0 = none).
+    prior : tuple of str
+        Any of ``"border"`` (the frame is background) and ``"center"`` (a central box
+        is foreground); empty for no prior.
+    box : (x0, y0, x1, y1) tuple of int, or None
+        A box known to contain the foreground (pixels; x is the column). Outside
+        it is taken as background.
+    prior_strength : float
+        Weight per pixel of the prior terminal edges, relative to appearance edges.
+    border_width : float
+        Width of the frame band used by the border prior, as a fraction of the
+        shorter image side.
+    center_fraction : float
+        Side of the central box of the center prior, as a fraction of each image side.
+    colour_model : bool
+        Learn per-image colour models for foreground and background and add their
+        log-likelihood ratios as terminal edges.
+    n_colour_words : int
+        Number of colour words (k-means centres in CIELAB) of the colour models.
+    model_rounds : int
+        Times the colour models are re-estimated from the current split.
+    model_strength : float
+        Multiplier of the colour-model terminal edges.
+    method : str
+        Max-cut method; ``"auto"`` takes tabu search warm-started from the SDP
+        relaxation when available, otherwise the best registered method.
+    time_limit : float or None
+        Seconds the solver may use per solve (None: the iteration budget decides).
+    max_moves : int or None
+        Deterministic move budget of search methods that take one.
+    fill_holes : bool
+        Fill background holes enclosed by the foreground after solving.
+    min_region_size : int
+        Drop foreground or background specks with fewer pixels than this (0 = keep).
+    seed : int
+        Seed of everything random (k-means start, search order).
+
+    Examples
+    --------
+    >>> cfg = SplitConfig(prior=("border", "center"))
+    >>> SplitConfig.from_toml(cfg.to_toml()) == cfg
+    True
+    >>> cfg.replace(n_superpixels=500).n_superpixels
+    500
+    """
+
+    n_superpixels: int | None = None
+    compactness: float = 10.0
+    pixel_grid_max_pixels: int = 4096
+    affinity: str = "colour"
+    threshold_quantile: float = 0.85
+    smoothness: float = 4.0
+    n_neighbors: int = 0
+    prior: tuple = ()
+    box: tuple | None = None
+    prior_strength: float = 2.0
+    border_width: float = 0.03
+    center_fraction: float = 0.3
+    colour_model: bool = True
+    n_colour_words: int = 24
+    model_rounds: int = 3
+    model_strength: float = 1.0
+    method: str = "auto"
+    time_limit: float | None = None
+    max_moves: int | None = None
+    fill_holes: bool = True
+    min_region_size: int = 0
+    seed: int = 0
+
+    def __post_init__(self):
+        _validate(self)
+
+    # -- construction -------------------------------------------------------------
+    @classmethod
+    def from_toml(cls, source) -> "SplitConfig":
+        """Read a config from TOML text, or from a file when ``source`` is a path.
+
+        Parameters
+        ----------
+        source : str or os.PathLike
+            TOML text (anything containing a newline, ``=`` or ``[``), or a path.
+
+        Raises
+        ------
+        ConfigError
+            Naming the file (when read from one) and the bad table, key or value.
+        """
+        path = None
+        if isinstance(source, os.PathLike) or (
+            isinstance(source, str) and not any(c in source for c in "\n=[")
+        ):
+            path = os.fspath(source)
+            try:
+                with open(path, "rb") as fh:
+                    text = fh.read().decode("utf-8")
+            except FileNotFoundError:
+                raise ConfigError("config file not found", path=path) from None
+            except (OSError, UnicodeDecodeError) as err:
+                raise ConfigError(f"cannot read config file: {err}", path=path) from None
+        else:
+            text = source
+        try:
+            data = tomllib.loads(text)
+        except tomllib.TOMLDecodeError as err:
+            raise ConfigError(f"not valid TOML: {err}", path=path) from None
+        return cls.from_dict(data, path=path)
+
+    @classmethod
+    def from_dict(cls, data: dict, *, path=None) -> "SplitConfig":
+        """Build a config from the nested dict of a parsed TOML file."""
+        values = {}
+        by_section: dict[str, set] = {}
+        for name, section in SECTIONS.items():
+            by_section.setdefault(section, set()).add(name)
+        for key, value in data.items():
+            if isinstance(value, dict):
+                if key not in by_section or key == "":
+                    known = ", ".join(f"[{s}]" for s in sorted(by_section) if s)
+                    raise ConfigError(f"unknown table [{key}]; known tables: {known}", path=path)
+                for sub, subvalue in value.items():
+                    if sub not in by_section[key]:
+                        raise ConfigError(
+                            f"unknown key {sub!r} in [{key}]; known keys: "
+                            f"{', '.join(sorted(by_section[key]))}", path=path)
+                    values[sub] = subvalue
+            else:
+                if key not in by_section[""]:
+                    raise ConfigError(
+                        f"unknown top-level key {key!r}; known: {', '.join(sorted(by_section['']))}"
+                        " (other keys belong in their table)", path=path)
+                values[key] = value
+        if "prior" in values:
+            prior = values["prior"]
+            if isinstance(prior, str):
+                prior = [p for p in prior.split(",") if p.strip()]
+            if not isinstance(prior, list):
+                raise ConfigError(f"[prior] prior must be a list of names; got {prior!r}", path=path)
+            values["prior"] = tuple(p.strip() if isinstance(p, str) else p for p in prior)
+        if "box" in values:
+            box = values["box"]
+            values["box"] = tuple(box) if isinstance(box, list) else box
+        try:
+            return cls(**values)
+        except (TypeError, ValueError) as err:
+            raise ConfigError(str(err), path=path) from None
+
+    def replace(self, **changes) -> "SplitConfig":
+        """A copy with some fields changed (validated like the constructor)."""
+        unknown = sorted(set(changes) - {f.name for f in fields(self)})
+        if unknown:
+            raise TypeError(f"SplitConfig has no field(s) {', '.join(unknown)}")
+        if "prior" in changes:
+            changes["prior"] = _as_prior(changes["prior"])
+        if "box" in changes and changes["box"] is not None:
+            changes["box"] = tuple(changes["box"])
+        return dataclasses.replace(self, **changes)
+
+    # -- output -------------------------------------------------------------------
+    def to_dict(self) -> dict:
+        """Plain field values (tuples as lists), for JSON records."""
+        out = {}
+        for f in fields(self):
+            value = getattr(self, f.name)
+            out[f.name] = list(value) if isinstance(value, tuple) else value
+        return out
+
+    def to_toml(self) -> str:
+        """Stable TOML text: fixed table and key order; unset (None) options as comments."""
+        lines = [f"seed = {_toml_value(self.seed)}"]
+        sections = []
+        for name, section in SECTIONS.items():
+            if section and section not in sections:
+                sections.append(section)
+        for section in sections:
+            lines.append("")
+            lines.append(f"[{section}]")
+            for name, sec in SECTIONS.items():
+                if sec != section:
+                    continue
+                value = getattr(self, name)
+                if value is None:
+                    lines.append(f"# {name} is not set")
+                else:
+                    lines.append(f"{name} = {_toml_value(value)}")
+        return "\n".join(lines) + "\n"
+
+    def config_hash(self) -> str:
+        """16 hex digits of SHA-256 over the canonical TOML and the segcut version.
+
+        Equal configs give equal hashes on every machine; a new segcut version gives a
+        new hash (its results may differ).
+        """
+        from . import __version__
+
+        text = f"segcut {__version__}\n{self.to_toml()}"
+        return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
+
+
+def load_config(path) -> SplitConfig:
+    """Read a :class:`SplitConfig` from a TOML file (ConfigError names file and key)."""
+    return SplitConfig.from_toml(os.fspath(path) if not isinstance(path, os.PathLike) else path)
+
+
+# -- validation ---------------------------------------------------------------------
+
+def _as_prior(prior) -> tuple:
+    if prior is None:
+        return ()
+    if isinstance(prior, str):
+        prior = [p.strip() for p in prior.split(",") if p.strip()]
+        if prior == ["none"]:
+            return ()
+    return tuple(prior)
+
+
+def _validate(cfg: SplitConfig) -> None:
+    def number(name, *, lo=None, hi=None, integer=False, allow_none=False, lo_open=False):
+        value = getattr(cfg, name)
+        if value is None and allow_none:
+            return
+        kind = "an integer" if integer else "a number"
+        ok_type = isinstance(value, int) if integer else isinstance(value, (int, float))
+        if isinstance(value, bool) or not ok_type or (not integer and not math.isfinite(value)):
+            raise ValueError(f"{name} must be {kind}; got {value!r}")
+        if lo is not None and (value <= lo if lo_open else value < lo):
+            raise ValueError(f"{name} must be {'>' if lo_open else '>='} {lo}; got {value!r}")
+        if hi is not None and value > hi:
+            raise ValueError(f"{name} must be <= {hi}; got {value!r}")
+        if not integer:  # 10 and 10.0 are the same setting: keep one spelling (stable hash)
+            object.__setattr__(cfg, name, float(value))
+
+    number("n_superpixels", lo=1, integer=True, allow_none=True)
+    number("compactness", lo=0, lo_open=True)
+    number("pixel_grid_max_pixels", lo=0, integer=True)
+    number("threshold_quantile", lo=0, hi=1, lo_open=True)
+    if cfg.threshold_quantile >= 1:
+        raise ValueError(f"threshold_quantile must be < 1; got {cfg.threshold_quantile!r}")
+    number("smoothness", lo=0)
+    number("n_neighbors", lo=0, integer=True)
+    number("prior_strength", lo=0)
+    number("border_width", lo=0, hi=0.5, lo_open=True)
+    number("center_fraction", lo=0, hi=1, lo_open=True)
+    number("n_colour_words", lo=2, integer=True)
+    number("model_rounds", lo=0, integer=True)
+    number("model_strength", lo=0)
+    number("time_limit", lo=0, lo_open=True, allow_none=True)
+    number("max_moves", lo=1, integer=True, allow_none=True)
+    number("min_region_size", lo=0, integer=True)
+    number("seed", lo=0, integer=True)
+    for name in ("colour_model", "fill_holes"):
+        if not isinstance(getattr(cfg, name), bool):
+            raise ValueError(f"{name} must be true or false; got {getattr(cfg, name)!r}")
+    for name in ("affinity", "method"):
+        value = getattr(cfg, name)
+        if not isinstance(value, str) or not value:
+            raise ValueError(f"{name} must be a non-empty name; got {value!r}")
+    prior = cfg.prior
+    if not isinstance(prior, tuple):
+        object.__setattr__(cfg, "prior", _as_prior(prior))
+        prior = cfg.prior
+    for p in prior:
+        if p not in PRIOR_NAMES:
+            raise ValueError(
+                f"prior {p!r} is not known; use any of {', '.join(PRIOR_NAMES)} (box and seeds "
+                "are separate options)")
+    if len(set(prior)) != len(prior):
+        raise ValueError(f"prior lists a name twice: {prior!r}")
+    if cfg.box is not None:
+        box = cfg.box
+        if (not isinstance(box, (tuple, list)) or len(box) != 4
+                or not all(isinstance(v, int) and not isinstance(v, bool) for v in box)):
+            raise ValueError(f"box must be four integers x0, y0, x1, y1; got {box!r}")
+        if not (box[0] < box[2] and box[1] < box[3]):
+            raise ValueError(f"box must have x0 < x1 and y0 < y1; got {tuple(box)!r}")
+        object.__setattr__(cfg, "box", tuple(box))
+
+
+def _toml_value(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        return repr(value)
+    if isinstance(value, str):
+        return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
+    if isinstance(value, (tuple, list)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    raise TypeError(f"cannot write {type(value).__name__} as TOML")

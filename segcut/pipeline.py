@@ -1,0 +1,687 @@
+"""The path of one image: superpixels, region graph, priors and colour models, max-cut, mask.
+
+:func:`split` is the main job of segcut: numpy image in, boolean mask out, with the
+cut value, its certified upper bound and the gap. :func:`build_image_graph` gives
+the signed graph that :func:`split` solves, and :func:`mask_to_sides` projects any
+mask onto it, so any mask can be scored on the same graph:
+
+>>> image = np.zeros((40, 40)); image[10:30, 12:28] = 1.0
+>>> result = split(image, rng=0)
+>>> result.mask[20, 20], result.mask[2, 2]
+(np.True_, np.False_)
+>>> sides, agreement = mask_to_sides(result.image_graph, result.mask)
+>>> cut_value(result.image_graph.graph, sides) == result.value, agreement
+(True, 1.0)
+"""
+
+from __future__ import annotations
+
+import time
+import warnings as _warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .affinity import edge_weights, knn_edges
+from .config import SplitConfig
+from .errors import SegcutWarning
+from .graph import SignedGraph, cut_value, graph_from_edges
+from .maxcut import available_methods, relative_gap, solve_maxcut
+from .maxcut.local import descend
+from .priors import SEED_BACKGROUND, SEED_FOREGROUND, colour_evidence, prior_map, seeded_regions
+from .regions import describe_regions, region_adjacency, word_histograms
+from .superpixels import oversegment
+
+__all__ = ["ImageGraph", "SplitResult", "build_image_graph", "mask_to_sides", "split",
+           "ORIENTATIONS"]
+
+#: What may decide which side is foreground (``SplitResult.orientation``).
+ORIENTATIONS = {
+    "terminal": "priors or seeds: the terminal vertex's side is foreground",
+    "border_rule": "no prior: the side with fewer pixels on the image frame is foreground",
+    "no_contrast": "the image has no contrast: the mask is empty",
+}
+
+
+@dataclass(frozen=True, eq=False)
+class ImageGraph:
+    """The signed graph of one image, and how its vertices map to pixels.
+
+    Attributes
+    ----------
+    labels : (M, N) or (P, M, N) int64 ndarray
+        Region (superpixel) of every pixel, consecutive from 0.
+    graph : SignedGraph
+        Vertices are the free regions, then the terminal (when there is one).
+    terminal : int or None
+        Index of the terminal vertex; its side is the foreground.
+    region_vertex : (n_regions,) int64 ndarray
+        Vertex of each region; hard-seeded regions map to the terminal.
+    merged : (n_regions,) int8 ndarray
+        0 for a free region, +1 for a region merged into the terminal as foreground,
+        -1 for one merged as background (its spin is minus the terminal's).
+    offset : float
+        Constant dropped by the merging: the cut value of a split on the unmerged
+        graph is ``cut_value(graph, sides) + offset``.
+    orientation : str
+        What decides the foreground side (see :data:`ORIENTATIONS`).
+    threshold : float
+        Distance threshold of the affinity model (where weights change sign).
+    start : (n_vertices,) int8 ndarray
+        The split reached by the colour-model rounds (a good solver start).
+    warnings : list of str
+    seconds : dict
+        Seconds per stage spent building the graph.
+    """
+
+    labels: np.ndarray
+    graph: SignedGraph
+    terminal: int | None
+    region_vertex: np.ndarray
+    merged: np.ndarray
+    offset: float
+    orientation: str
+    threshold: float
+    start: np.ndarray
+    warnings: list = field(default_factory=list)
+    seconds: dict = field(default_factory=dict)
+
+    @property
+    def n_regions(self) -> int:
+        return int(self.region_vertex.shape[0])
+
+    def region_foreground(self, sides) -> np.ndarray:
+        """Foreground flag of every region for vertex ``sides`` (terminal side = foreground)."""
+        sides = np.asarray(sides)
+        if self.terminal is None:
+            return sides[self.region_vertex] == 1
+        spin = sides[self.region_vertex] * sides[self.terminal]
+        spin = np.where(self.merged == -1, -spin, spin)
+        return spin == 1
+
+    def paint(self, sides) -> np.ndarray:
+        """The pixel mask of vertex ``sides``."""
+        return self.region_foreground(sides)[self.labels]
+
+    def __repr__(self) -> str:
+        return (f"ImageGraph(n_regions={self.n_regions}, graph={self.graph!r}, "
+                f"terminal={self.terminal}, orientation={self.orientation!r})")
+
+
+@dataclass(frozen=True, eq=False)
+class SplitResult:
+    """The outcome of :func:`split` for one image.
+
+    Attributes
+    ----------
+    mask : bool ndarray, spatial shape of the image
+        True for foreground.
+    labels : int64 ndarray, same shape
+        Superpixel of every pixel.
+    value : float
+        Cut value of the final mask on ``image_graph.graph``:
+        ``cut_value(graph, mask_to_sides(image_graph, mask)[0])``.
+    upper_bound : float or None
+        Certified upper bound on the best cut of that graph (None when the method
+        gives none).
+    gap : float or None
+        ``(upper_bound - value) / |upper_bound|``.
+    foreground_fraction : float
+    n_superpixels : int
+    orientation : str
+        See :data:`ORIENTATIONS`.
+    seconds : dict
+        Seconds per stage.
+    warnings : list of str
+    cleanup : dict
+        ``value_before`` and ``value_after`` the clean-up, pixels changed.
+    method : str
+        Max-cut method used for the final solve.
+    seed : int or None
+    image_graph : ImageGraph
+        The graph that was solved.
+    """
+
+    mask: np.ndarray
+    labels: np.ndarray
+    value: float
+    upper_bound: float | None
+    gap: float | None
+    foreground_fraction: float
+    n_superpixels: int
+    orientation: str
+    seconds: dict
+    warnings: list
+    cleanup: dict
+    method: str
+    seed: int | None = None
+    image_graph: ImageGraph | None = field(default=None, repr=False)
+
+    def to_record(self) -> dict:
+        """The JSON-serialisable statistics of this split (no arrays).
+
+        Examples
+        --------
+        >>> r = split(np.eye(8), rng=0)
+        >>> sorted(r.to_record())[:4]
+        ['cleanup', 'foreground_fraction', 'gap', 'method']
+        """
+        return {
+            "value": float(self.value),
+            "upper_bound": None if self.upper_bound is None else float(self.upper_bound),
+            "gap": None if self.gap is None else float(self.gap),
+            "foreground_fraction": float(self.foreground_fraction),
+            "n_superpixels": int(self.n_superpixels),
+            "orientation": self.orientation,
+            "method": self.method,
+            "seed": self.seed,
+            "seconds": {k: round(float(v), 6) for k, v in self.seconds.items()},
+            "warnings": list(self.warnings),
+            "cleanup": dict(self.cleanup),
+        }
+
+    def __repr__(self) -> str:
+        bound = "None" if self.upper_bound is None else f"{self.upper_bound:.6g}"
+        gap = "None" if self.gap is None else f"{self.gap:.3g}"
+        return (f"SplitResult(shape={self.mask.shape}, foreground_fraction="
+                f"{self.foreground_fraction:.3g}, value={self.value:.6g}, upper_bound={bound}, "
+                f"gap={gap}, n_superpixels={self.n_superpixels}, orientation={self.orientation!r})")
+
+
+# -- image preparation -----------------------------------------------------------------
+
+def _prepare(image, channel_axis):
+    """Image -> (features (..., C) in CIELAB / 100*gray, warnings, has_contrast)."""
+    arr = np.asarray(image)
+    if arr.dtype == object or not (np.issubdtype(arr.dtype, np.number) or arr.dtype == bool):
+        raise TypeError(f"image must be a numeric array; got dtype {arr.dtype}")
+    if channel_axis is not None and arr.ndim >= 3:
+        arr = np.moveaxis(arr, channel_axis, -1)
+        if arr.shape[-1] > 4:
+            raise ValueError(
+                f"image has {arr.shape[-1]} channels along channel_axis={channel_axis}; for a "
+                "3-D stack without channels pass channel_axis=None")
+    else:
+        arr = arr[..., None]
+    if arr.ndim - 1 not in (2, 3):
+        raise ValueError(f"image must be 2-D or a 3-D stack (with optional channels); got shape "
+                         f"{np.asarray(image).shape} with channel_axis={channel_axis}")
+    if min(arr.shape[:-1]) < 2:
+        raise ValueError(f"image is too small to split: spatial shape {arr.shape[:-1]}")
+    warnings = []
+    channels = arr.shape[-1]
+    if channels in (2, 4):  # drop alpha
+        arr = arr[..., :channels - 1]
+    if arr.dtype == bool:
+        x = arr.astype(np.float64)
+    elif np.issubdtype(arr.dtype, np.unsignedinteger):
+        x = arr.astype(np.float64) / float(np.iinfo(arr.dtype).max)
+    elif np.issubdtype(arr.dtype, np.integer):
+        info = np.iinfo(arr.dtype)
+        x = (arr.astype(np.float64) - info.min) / float(info.max - info.min)
+    else:
+        x = arr.astype(np.float64)
+        finite = np.isfinite(x)
+        if not finite.any():
+            raise ValueError("image has no finite values (all NaN or infinite)")
+        if not finite.all():
+            n_bad = int(np.count_nonzero(~finite))
+            x = np.where(finite, x, np.mean(x[finite]))
+            warnings.append(f"{n_bad} non-finite value(s) replaced by the image mean")
+        lo, hi = float(x.min()), float(x.max())
+        if lo < 0.0 or hi > 1.0:
+            x = (x - lo) / (hi - lo) if hi > lo else np.zeros_like(x)
+    has_contrast = bool(np.ptp(x.reshape(-1, x.shape[-1]), axis=0).max() > 0)
+    if x.shape[-1] == 3:
+        from skimage.color import rgb2lab
+
+        feats = rgb2lab(np.clip(x, 0.0, 1.0), channel_axis=-1)
+    else:
+        feats = 100.0 * x[..., :1]
+    return np.ascontiguousarray(feats, dtype=np.float64), warnings, has_contrast
+
+
+def _normalise_seeds(seeds, spatial_shape):
+    if seeds is None:
+        return None
+    seeds = np.asarray(seeds)
+    if seeds.shape != tuple(spatial_shape):
+        raise ValueError(f"seeds shape {seeds.shape} does not match the image's spatial shape "
+                         f"{tuple(spatial_shape)}")
+    values = np.unique(seeds)
+    bad = values[~np.isin(values, (0, SEED_FOREGROUND, SEED_BACKGROUND))]
+    if bad.size:
+        raise ValueError(f"seeds must hold 0 (unknown), 1 (foreground) or 2 (background); got "
+                         f"value {bad[0]!r}")
+    return seeds
+
+
+# -- graph assembly ------------------------------------------------------------------
+
+def _assemble(n_regions, merged, rows, cols, weights, evidence, with_terminal):
+    """Merge seeded regions into the terminal and add the evidence edges.
+
+    Region spin ``s_a * y_v`` (``s = -1`` for background-merged regions): an edge
+    between a region of sign ``s_a`` and one of ``s_b`` becomes an edge of weight
+    ``s_a s_b w`` between their vertices, plus the constant ``w`` when
+    ``s_a s_b = -1`` (since ``[y != -z] = 1 - [y != z]``).
+    """
+    if not with_terminal:
+        g = graph_from_edges(n_regions, rows, cols, weights)
+        return g, None, np.arange(n_regions, dtype=np.int64), 0.0
+    free = merged == 0
+    k = int(np.count_nonzero(free))
+    region_vertex = np.full(n_regions, k, dtype=np.int64)
+    region_vertex[free] = np.arange(k)
+    sign = np.where(merged == 0, 1, merged).astype(np.float64)
+    vi, vj = region_vertex[rows], region_vertex[cols]
+    prod = sign[rows] * sign[cols]
+    offset = float(np.sum(weights[prod < 0]))
+    inner = vi != vj
+    # Both ends merged: the pair is decided by the seeds; only the constant remains.
+    e_rows = [vi[inner]]
+    e_cols = [vj[inner]]
+    e_w = [(prod * weights)[inner]]
+    # Evidence u: edge (t, i) with weight -u pays -u when region i is background.
+    e_rows.append(np.full(k, k, dtype=np.int64))
+    e_cols.append(np.arange(k, dtype=np.int64))
+    e_w.append(-evidence[free])
+    offset += float(-np.sum(evidence[merged == -1]))
+    g = graph_from_edges(k + 1, np.concatenate(e_rows), np.concatenate(e_cols),
+                         np.concatenate(e_w))
+    return g, k, region_vertex, offset
+
+
+def _two_means(colours, weights):
+    """Deterministic weighted 2-means of region colours; returns group 0/1 per region."""
+    from .regions import learn_colour_words
+
+    centres = learn_colour_words(colours, weights, 2)
+    if centres.shape[0] < 2:
+        return np.zeros(colours.shape[0], dtype=np.int64)
+    d = ((colours[:, None, :] - centres[None]) ** 2).sum(-1)
+    return np.argmin(d, axis=1)
+
+
+def _border_rule(region_fg, frame):
+    """True when the foreground touches the frame more than the background: flip it."""
+    return float(frame[region_fg].sum()) > float(frame[~region_fg].sum())
+
+
+def _local_best(graph, starts, rng):
+    best, best_value = None, -np.inf
+    for start in starts:
+        sides, _ = descend(graph, start, rng=rng)
+        value = cut_value(graph, sides)
+        if best is None or value > best_value + 1e-12 * max(1.0, abs(best_value)):
+            best, best_value = sides, value
+    return best, best_value
+
+
+def _vertex_start(region_fg, region_vertex, merged, terminal, n_vertices):
+    sides = np.full(n_vertices, -1, dtype=np.int8)
+    free = merged == 0
+    sides[region_vertex[free]] = np.where(region_fg[free], 1, -1)
+    if terminal is not None:
+        sides[terminal] = 1
+    return sides
+
+
+def _build(image, config, seeds, channel_axis, rng):
+    seconds = {}
+    t0 = time.perf_counter()
+    feats, warnings, has_contrast = _prepare(image, channel_axis)
+    spatial = feats.shape[:-1]
+    seeds = _normalise_seeds(seeds, spatial)
+    seconds["prepare"] = time.perf_counter() - t0
+    if not has_contrast:
+        labels = np.zeros(spatial, dtype=np.int64)
+        g = graph_from_edges(1, [], [], [])
+        warnings.append("image has no contrast: the mask is empty")
+        return ImageGraph(labels=labels, graph=g, terminal=None,
+                          region_vertex=np.zeros(1, np.int64), merged=np.zeros(1, np.int8),
+                          offset=0.0, orientation="no_contrast", threshold=0.0,
+                          start=-np.ones(1, np.int8), warnings=warnings, seconds=seconds)
+
+    t0 = time.perf_counter()
+    labels = oversegment(feats, n_superpixels=config.n_superpixels,
+                         compactness=config.compactness,
+                         pixel_grid_max_pixels=config.pixel_grid_max_pixels)
+    seconds["superpixels"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    regions = describe_regions(labels, feats, n_colour_words=config.n_colour_words)
+    adjacency = region_adjacency(labels, feats)
+    n = regions.n_regions
+    seconds["features"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    pair_w, threshold = edge_weights(config.affinity, regions, adjacency,
+                                     quantile=config.threshold_quantile)
+    rows, cols = adjacency.rows, adjacency.cols
+    pair_w = config.smoothness * pair_w
+    if config.n_neighbors > 0:
+        kr, kc, kd = knn_edges(regions, config.n_neighbors, exclude=rows * n + cols)
+        colour_t = float(np.quantile(
+            np.sqrt(((regions.mean[rows] - regions.mean[cols]) ** 2).sum(1)),
+            config.threshold_quantile)) if rows.size else 1.0
+        scale = float(np.median(adjacency.border)) if rows.size else 1.0
+        kw = -config.smoothness * scale * np.clip(1.0 - kd / max(colour_t, 1e-12), 0.0, 1.0)
+        rows, cols = np.concatenate([rows, kr]), np.concatenate([cols, kc])
+        pair_w = np.concatenate([pair_w, kw])
+
+    pmap, inside = prior_map(spatial, config)
+    flat_labels = labels.ravel()
+    prior_u = np.zeros(n)
+    fg_w = bg_w = None
+    if pmap is not None:
+        prior_u = config.prior_strength * np.bincount(flat_labels, weights=pmap.ravel(),
+                                                      minlength=n)
+        pos = (pmap > 0) if inside is None else (pmap > 0) | inside
+        fg_w = np.bincount(flat_labels, weights=pos.ravel().astype(float), minlength=n) / regions.area
+        bg_w = np.bincount(flat_labels, weights=(pmap < 0).ravel().astype(float),
+                           minlength=n) / regions.area
+    merged = np.zeros(n, dtype=np.int8)
+    if seeds is not None and np.any(seeds):
+        merged, seed_warnings = seeded_regions(labels, seeds)
+        warnings.extend(seed_warnings)
+        if fg_w is None:
+            fg_w, bg_w = (merged == 1).astype(float), (merged == -1).astype(float)
+        else:
+            fg_w = np.where(merged == 1, 1.0, np.where(merged == -1, 0.0, fg_w))
+            bg_w = np.where(merged == -1, 1.0, np.where(merged == 1, 0.0, bg_w))
+        if not fg_w.any():
+            fg_w = 1.0 - bg_w
+        if not bg_w.any():
+            bg_w = 1.0 - fg_w
+    informed = fg_w is not None
+    orientation = "terminal" if informed else "border_rule"
+    with_terminal = informed or config.colour_model
+    if not informed and config.colour_model:
+        group = _two_means(regions.mean, regions.area).astype(bool)
+        if _border_rule(group, regions.frame):
+            group = ~group
+        fg_w, bg_w = group.astype(float), (~group).astype(float)
+
+    counts = word_histograms(labels, regions.words, n, regions.centres.shape[0])
+    rounds = config.model_rounds if config.colour_model else 0
+    generator = np.random.default_rng(rng)
+
+    def evidence(fg_w, bg_w):
+        u = prior_u.copy()
+        if config.colour_model:
+            u += config.model_strength * colour_evidence(counts, fg_w, bg_w)
+        return u
+
+    region_fg = None if fg_w is None else fg_w > 0.5
+    for _ in range(rounds):
+        u = evidence(fg_w, bg_w)
+        g, terminal, region_vertex, offset = _assemble(n, merged, rows, cols, pair_w, u,
+                                                       with_terminal)
+        starts = [_vertex_start(u > 0, region_vertex, merged, terminal, g.n_vertices)]
+        if region_fg is not None:
+            starts.append(_vertex_start(region_fg, region_vertex, merged, terminal,
+                                        g.n_vertices))
+        sides, _ = _local_best(g, starts, generator)
+        ig_tmp = _image_graph(labels, g, terminal, region_vertex, merged, offset, orientation,
+                              threshold, sides, warnings, seconds)
+        region_fg = ig_tmp.region_foreground(sides)
+        if not informed and _border_rule(region_fg, regions.frame):
+            region_fg = ~region_fg
+        if region_fg.all() or not region_fg.any():
+            break  # one side is empty: a colour model of nothing says nothing
+        fg_w, bg_w = region_fg.astype(float), (~region_fg).astype(float)
+
+    u = evidence(fg_w, bg_w) if with_terminal else np.zeros(n)
+    g, terminal, region_vertex, offset = _assemble(n, merged, rows, cols, pair_w, u, with_terminal)
+    if region_fg is None:
+        region_fg = u > 0
+    start = _vertex_start(region_fg, region_vertex, merged, terminal, g.n_vertices)
+    seconds["graph"] = time.perf_counter() - t0
+    return _image_graph(labels, g, terminal, region_vertex, merged, offset, orientation,
+                        threshold, start, warnings, seconds)
+
+
+def _image_graph(labels, g, terminal, region_vertex, merged, offset, orientation, threshold,
+                 start, warnings, seconds):
+    return ImageGraph(labels=labels, graph=g, terminal=terminal, region_vertex=region_vertex,
+                      merged=merged, offset=offset, orientation=orientation,
+                      threshold=float(threshold), start=np.asarray(start, dtype=np.int8),
+                      warnings=warnings, seconds=seconds)
+
+
+def build_image_graph(image, config: SplitConfig | None = None, *, seeds=None,
+                      channel_axis: int | None = -1, rng=None) -> ImageGraph:
+    """The signed graph :func:`split` solves for ``image`` (same arguments).
+
+    Over-segments the image, measures the regions, weighs neighbour pairs with the
+    affinity model, adds prior and colour-model evidence as terminal edges and
+    merges hard seeds into the terminal. The colour models are re-estimated over
+    ``config.model_rounds`` rounds of fast 1-flip solves, so the graph returned is
+    the one of the last round.
+
+    Parameters
+    ----------
+    image : (M, N[, C]) or (P, M, N[, C]) ndarray
+        Gray, RGB or RGBA (alpha ignored); any integer or float dtype.
+    config : SplitConfig, optional
+    seeds : int ndarray, spatial shape of ``image``, optional
+        0 unknown, 1 foreground, 2 background (hard seeds).
+    channel_axis : int or None
+        Axis of the colour channels; None for gray images and gray 3-D stacks.
+    rng : None, int or numpy.random.Generator
+        Seed of the search order; by default ``config.seed``.
+
+    Returns
+    -------
+    ImageGraph
+
+    Examples
+    --------
+    >>> image = np.zeros((20, 20)); image[5:15, 5:15] = 1.0
+    >>> ig = build_image_graph(image, SplitConfig(prior=("border",)))
+    >>> ig.n_regions, ig.terminal, ig.orientation
+    (400, 400, 'terminal')
+    """
+    config = SplitConfig() if config is None else config
+    if not isinstance(config, SplitConfig):
+        raise TypeError(f"config must be a SplitConfig; got {type(config).__name__}")
+    return _build(image, config, seeds, channel_axis, config.seed if rng is None else rng)
+
+
+def mask_to_sides(image_graph: ImageGraph, mask) -> tuple[np.ndarray, float]:
+    """Project a pixel mask onto the vertices of an image graph.
+
+    Each free region takes the side of the majority of its pixels (background on a
+    tie); the terminal takes the foreground side (+1); seeded regions keep their
+    seed.
+
+    Parameters
+    ----------
+    image_graph : ImageGraph
+    mask : bool ndarray, the shape of ``image_graph.labels``
+
+    Returns
+    -------
+    sides : (n_vertices,) int8 ndarray of +-1
+    agreement : float
+        Share of pixels where ``mask`` equals the painted projection (1.0 when the
+        mask follows the regions exactly).
+
+    Examples
+    --------
+    >>> ig = build_image_graph(np.eye(8), SplitConfig(colour_model=False))
+    >>> sides, agreement = mask_to_sides(ig, np.eye(8, dtype=bool))
+    >>> int(sides.sum()), agreement
+    (-48, 1.0)
+    """
+    mask = np.asarray(mask)
+    labels = image_graph.labels
+    if mask.shape != labels.shape:
+        raise ValueError(f"mask shape {mask.shape} does not match the image's spatial shape "
+                         f"{labels.shape}")
+    mask = mask.astype(bool)
+    n = image_graph.n_regions
+    fg = np.bincount(labels.ravel(), weights=mask.ravel().astype(np.float64), minlength=n)
+    area = np.bincount(labels.ravel(), minlength=n)
+    region_fg = 2.0 * fg > area
+    region_fg = np.where(image_graph.merged == 1, True,
+                         np.where(image_graph.merged == -1, False, region_fg))
+    sides = _vertex_start(region_fg, image_graph.region_vertex, image_graph.merged,
+                          image_graph.terminal, image_graph.graph.n_vertices)
+    agreement = float(np.mean(region_fg[labels] == mask))
+    return sides, agreement
+
+
+# -- solving ---------------------------------------------------------------------------
+
+def _choose_method(config):
+    methods = available_methods()
+    if config.method != "auto":
+        return config.method, {}
+    if "tabu" in methods and "start_from" in methods["tabu"].options:
+        return "tabu", {"start_from": "sdp"}
+    if "sdp" in methods:
+        return "sdp", {}
+    return "local", {}
+
+
+def _solve(ig: ImageGraph, config: SplitConfig, generator):
+    name, options = _choose_method(config)
+    spec = available_methods().get(name)
+    if spec is not None:
+        if "start" in spec.options and "start_from" not in options:
+            options["start"] = ig.start
+        if "max_moves" in spec.options and config.max_moves is not None:
+            options["max_moves"] = config.max_moves
+    result = solve_maxcut(ig.graph, method=name, time_limit=config.time_limit, rng=generator,
+                          **options)
+    # The colour-model rounds already reached a good split: keep the better of the two
+    # (the bound holds for the graph, whichever split is reported).
+    sides, value = _local_best(ig.graph, [result.sides, ig.start], generator)
+    if result.value >= value:
+        sides, value = result.sides, result.value
+    return name, sides, value, result.upper_bound
+
+
+def _clean(mask, config):
+    from scipy import ndimage as ndi
+
+    out = mask
+    if config.min_region_size > 0:
+        for target in (True, False):
+            comp, count = ndi.label(out == target)
+            if count:
+                sizes = np.bincount(comp.ravel())
+                small = sizes < config.min_region_size
+                small[0] = False
+                out = np.where(small[comp], not target, out)
+    if config.fill_holes:
+        out = ndi.binary_fill_holes(out)
+    return out
+
+
+def split(image, config: SplitConfig | None = None, *, seeds=None,
+          channel_axis: int | None = -1, rng=None) -> SplitResult:
+    """Split an image into foreground and background as a certified max-cut.
+
+    Parameters
+    ----------
+    image : (M, N[, C]) or (P, M, N[, C]) ndarray
+        Gray, RGB or RGBA (alpha ignored); uint8, uint16, other integers or floats
+        (floats in [0, 1] are taken as they are, others rescaled to [0, 1]).
+    config : SplitConfig, optional
+        All options; ``SplitConfig()`` by default.
+    seeds : int ndarray, spatial shape of ``image``, optional
+        Hard seeds: 0 unknown, 1 foreground, 2 background.
+    channel_axis : int or None, default -1
+        Axis of the colour channels; None for gray images and gray 3-D stacks.
+    rng : None, int or numpy.random.Generator
+        Seed for everything random; by default ``config.seed``. The same image,
+        config and seed give identical masks.
+
+    Returns
+    -------
+    SplitResult
+
+    Raises
+    ------
+    ValueError
+        For a malformed image, seeds or a config value.
+
+    Notes
+    -----
+    With spins ``x_i`` in {-1, +1}, the cut value is
+    ``sum_{i<j} w_ij (1 - x_i x_j) / 2``. Neighbour weights come from the affinity
+    model (:mod:`segcut.affinity`), terminal weights from priors and colour models
+    (:mod:`segcut.priors`). With no prior and no seeds, the colour models start
+    from a 2-means split of the region colours and the foreground is the side with
+    fewer pixels on the image frame (orientation ``"border_rule"``).
+
+    Examples
+    --------
+    >>> image = np.zeros((30, 30, 3)); image[8:22, 8:22] = (0.9, 0.2, 0.1)
+    >>> r = split(image, SplitConfig(prior=("border",)), rng=1)
+    >>> round(r.foreground_fraction, 3), r.orientation
+    (0.218, 'terminal')
+    """
+    config = SplitConfig() if config is None else config
+    if not isinstance(config, SplitConfig):
+        raise TypeError(f"config must be a SplitConfig; got {type(config).__name__}")
+    seed = config.seed if rng is None else rng
+    generator = np.random.default_rng(seed)
+    ig = _build(image, config, seeds, channel_axis, generator)
+    seconds = dict(ig.seconds)
+    warnings = list(ig.warnings)
+    if ig.orientation == "no_contrast":
+        mask = np.zeros(ig.labels.shape, dtype=bool)
+        return SplitResult(mask=mask, labels=ig.labels, value=0.0, upper_bound=0.0, gap=0.0,
+                           foreground_fraction=0.0, n_superpixels=1, orientation="no_contrast",
+                           seconds=seconds, warnings=warnings,
+                           cleanup={"value_before": 0.0, "value_after": 0.0, "pixels_changed": 0},
+                           method="none", seed=_seed_record(seed), image_graph=ig)
+    t0 = time.perf_counter()
+    method, sides, value_before, bound = _solve(ig, config, generator)
+    seconds["solve"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    mask = ig.paint(sides)
+    if ig.terminal is None and _border_rule(ig.region_foreground(sides),
+                                            _frame_pixels(ig.labels)):
+        mask = ~mask  # no terminal: the side touching the frame less is foreground
+    cleaned = _clean(mask, config)
+    final_sides, _ = mask_to_sides(ig, cleaned)
+    final_mask = ig.paint(final_sides)
+    if ig.terminal is None and _border_rule(ig.region_foreground(final_sides),
+                                            _frame_pixels(ig.labels)):
+        final_mask = ~final_mask
+    value_after = cut_value(ig.graph, final_sides)
+    seconds["cleanup"] = time.perf_counter() - t0
+    changed = int(np.count_nonzero(final_mask != mask))
+    return SplitResult(
+        mask=final_mask, labels=ig.labels, value=value_after, upper_bound=bound,
+        gap=relative_gap(value_after, bound), foreground_fraction=float(final_mask.mean()),
+        n_superpixels=ig.n_regions, orientation=ig.orientation, seconds=seconds,
+        warnings=warnings,
+        cleanup={"value_before": float(value_before), "value_after": float(value_after),
+                 "pixels_changed": changed},
+        method=method, seed=_seed_record(seed), image_graph=ig)
+
+
+def _frame_pixels(labels):
+    n = int(labels.max()) + 1
+    frame = np.zeros(labels.shape, dtype=bool)
+    rows_axis, cols_axis = labels.ndim - 2, labels.ndim - 1
+    for axis in (rows_axis, cols_axis):
+        index = [slice(None)] * labels.ndim
+        index[axis] = 0
+        frame[tuple(index)] = True
+        index[axis] = -1
+        frame[tuple(index)] = True
+    return np.bincount(labels.ravel(), weights=frame.ravel().astype(float), minlength=n)
+
+
+def _seed_record(seed):
+    if seed is None or isinstance(seed, (int, np.integer)):
+        return None if seed is None else int(seed)
+    return None
