@@ -400,7 +400,8 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
     array = np.asarray(array)
     mode = f"{photometric} {array.dtype.name}"
     if array.dtype.kind == "c":
-        raise InputError(f"complex-valued TIFF ({array.dtype}) is not an image segcut reads", path=path)
+        raise InputError(f"complex-valued TIFF ({array.dtype}) is not an image segcut reads",
+                         path=path)
     # move the samples axis last, squeeze unit axes, keep at most one stack axis
     if "S" in axes:
         array = np.moveaxis(array, axes.index("S"), -1)
@@ -756,9 +757,11 @@ def write_image(array, path, *, channel_axis: int | None = None) -> None:
         raise ValueError(f"cannot write an empty image (shape {array.shape})")
     if suffix == ".png":
         if spatial != 2:
-            raise ValueError(f"PNG holds 2-D images; got shape {array.shape}; use a .tif name for stacks")
+            raise ValueError(
+                f"PNG holds 2-D images; got shape {array.shape}; use a .tif name for stacks")
         if array.dtype not in (np.uint8, np.uint16):
-            raise ValueError(f"PNG takes uint8 or uint16 pixels, got {array.dtype}; use a .tif name")
+            raise ValueError(
+                f"PNG takes uint8 or uint16 pixels, got {array.dtype}; use a .tif name")
         if colour and array.dtype != np.uint8:
             raise ValueError("colour PNG takes uint8 pixels; use a .tif name for 16-bit colour")
         write_bytes_atomic(path, _png_bytes(array))
@@ -789,6 +792,8 @@ def write_mask(mask, path) -> None:
 
     A 2-D mask is written as an 8-bit gray PNG (or TIFF when ``path`` ends in
     ``.tif``/``.tiff``); a 3-D mask ``(P, M, N)`` must go to a TIFF, one page per plane.
+    (:func:`read_image` drops axes of length one other than height and width, so a
+    stack of a single plane reads back as a 2-D mask.)
 
     Parameters
     ----------
