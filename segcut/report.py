@@ -1,0 +1,429 @@
+"""The run report: one self-contained HTML page to look through a folder of splits.
+
+:func:`render_report` turns result rows (as :func:`segcut.batch.write_report` builds
+them from ``records.jsonl``) into a page that needs nothing from the network: styles
+and scripts are inline, overlay thumbnails are embedded as ``data:`` URIs, and the
+two distribution plots are inline SVG drawn here. The page has
+
+- a table with one row per image: thumbnail (a link to the full overlay), input,
+  status, flags, foreground fraction, cut value, certified upper bound, gap,
+  superpixels, seconds, warnings or error. Clicking a column heading sorts by it
+  (again: the other way round); a text box, a status choice and a "flagged only"
+  switch filter the rows;
+- flags for splits that deserve a look (:func:`flag_row`);
+- histograms of the certified gap and of the foreground fraction.
+
+Opening the page as ``report.html#selftest`` runs a check inside the browser (every
+thumbnail decodes, sorting reorders rows, filtering hides rows) and writes the
+result as JSON into the element ``<pre id="selftest">``; the test suite reads it
+with a headless browser. This module only builds text; it reads and writes no files.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import math
+from typing import Sequence
+
+__all__ = ["FLAG_RULES", "flag_row", "histogram_svg", "render_report"]
+
+#: Default thresholds of :func:`flag_row`.
+FLAG_RULES = {
+    "min_foreground": 0.02,
+    "max_foreground": 0.90,
+    "max_gap": 0.05,
+}
+
+
+def flag_row(row: dict, *, min_foreground: float = FLAG_RULES["min_foreground"],
+             max_foreground: float = FLAG_RULES["max_foreground"],
+             max_gap: float = FLAG_RULES["max_gap"]) -> list[str]:
+    """Reasons a split deserves a look (an empty list when none).
+
+    Parameters
+    ----------
+    row : dict
+        With ``status``, ``foreground_fraction``, ``gap`` and ``warnings``.
+    min_foreground, max_foreground : float
+        A foreground fraction below ``min_foreground`` is flagged ``"tiny foreground"``,
+        above ``max_foreground`` ``"huge foreground"``.
+    max_gap : float
+        A certified relative gap above this is flagged ``"large gap"``.
+
+    Returns
+    -------
+    list of str
+        Any of ``"failed"``, ``"tiny foreground"``, ``"huge foreground"``,
+        ``"large gap"``, ``"no bound"``, ``"warnings"``.
+
+    Examples
+    --------
+    >>> flag_row({"status": "ok", "foreground_fraction": 0.01, "gap": 0.08, "warnings": []})
+    ['tiny foreground', 'large gap']
+    >>> flag_row({"status": "failed", "error": "x.png: empty file"})
+    ['failed']
+    """
+    if row.get("status") != "ok":
+        return ["failed"]
+    flags = []
+    fraction = row.get("foreground_fraction")
+    if fraction is not None:
+        if fraction < min_foreground:
+            flags.append("tiny foreground")
+        elif fraction > max_foreground:
+            flags.append("huge foreground")
+    gap = row.get("gap")
+    if gap is None:
+        flags.append("no bound")
+    elif gap > max_gap:
+        flags.append("large gap")
+    if row.get("warnings"):
+        flags.append("warnings")
+    return flags
+
+
+def _nice_ceiling(value: float) -> float:
+    """The smallest of 1, 2, 2.5, 5 times a power of ten that is >= value."""
+    if not value > 0:
+        return 1.0
+    power = 10.0 ** math.floor(math.log10(value))
+    for step in (1.0, 2.0, 2.5, 5.0, 10.0):
+        if step * power >= value * (1 - 1e-12):
+            return step * power
+    return 10.0 * power  # pragma: no cover - the loop always returns
+
+
+def _fmt_tick(value: float, scale: float) -> str:
+    text = f"{value * scale:.4g}"
+    return text
+
+
+def histogram_svg(values: Sequence[float], *, lo: float = 0.0, hi: float | None = None,
+                  n_bins: int = 20, title: str = "", scale: float = 1.0, unit: str = "",
+                  width: int = 360, height: int = 180) -> str:
+    """An inline SVG histogram (bars, axis, counts) of ``values``.
+
+    Parameters
+    ----------
+    values : sequence of float
+        None and non-finite values are left out.
+    lo, hi : float
+        The range; ``hi`` defaults to a round number at or above the largest value.
+        Values outside the range are counted in the first or last bar.
+    n_bins : int
+        Number of bars.
+    title : str
+        Caption above the plot.
+    scale, unit : float, str
+        Tick labels show ``value * scale`` followed by ``unit`` (e.g. 100 and "%").
+    width, height : int
+        Size in pixels.
+
+    Returns
+    -------
+    str
+        An ``<svg>`` element.
+
+    Examples
+    --------
+    >>> svg = histogram_svg([0.1, 0.2, 0.2, 0.9], lo=0.0, hi=1.0, n_bins=4, title="x")
+    >>> svg.count("<rect class=\\"bar\\"")
+    4
+    >>> '<title>0.25 to 0.5: 0</title>' in svg
+    True
+    """
+    clean = [float(v) for v in values if v is not None and math.isfinite(float(v))]
+    if hi is None:
+        hi = _nice_ceiling(max(clean, default=0.0))
+    if not hi > lo:
+        hi = lo + 1.0
+    counts = [0] * n_bins
+    for v in clean:
+        k = int((v - lo) / (hi - lo) * n_bins)
+        counts[min(max(k, 0), n_bins - 1)] += 1
+    top = max(counts, default=0) or 1
+    left, right, upper, lower = 34, 8, 24, 30
+    plot_w, plot_h = width - left - right, height - upper - lower
+    bar_w = plot_w / n_bins
+    parts = [f'<svg class="hist" width="{width}" '
+             f'height="{height}" viewBox="0 0 {width} {height}" role="img" '
+             f'aria-label="{html.escape(title)}">',
+             f'<text x="{left}" y="15" class="cap">{html.escape(title)} '
+             f'({len(clean)} images)</text>']
+    for k, count in enumerate(counts):
+        h = plot_h * count / top
+        x = left + k * bar_w
+        a, b = lo + (hi - lo) * k / n_bins, lo + (hi - lo) * (k + 1) / n_bins
+        label = f"{_fmt_tick(a, scale)} to {_fmt_tick(b, scale)}{unit}: {count}"
+        parts.append(f'<rect class="bar" x="{x + 1:.1f}" y="{upper + plot_h - h:.1f}" '
+                     f'width="{max(bar_w - 2, 1):.1f}" height="{h:.1f}">'
+                     f'<title>{html.escape(label)}</title></rect>')
+    base = upper + plot_h
+    parts.append(f'<line class="axis" x1="{left}" y1="{base}" x2="{left + plot_w}" y2="{base}"/>')
+    for frac in (0.0, 0.5, 1.0):
+        x = left + plot_w * frac
+        parts.append(f'<text x="{x:.1f}" y="{base + 16}" class="tick" text-anchor="middle">'
+                     f'{_fmt_tick(lo + (hi - lo) * frac, scale)}{html.escape(unit)}</text>')
+    parts.append(f'<text x="{left - 4}" y="{upper + 4}" class="tick" text-anchor="end">{top}</text>')
+    parts.append(f'<text x="{left - 4}" y="{base}" class="tick" text-anchor="end">0</text>')
+    parts.append("</svg>")
+    return "".join(parts)
+
+
+_STYLE = """
+:root { --ink:#1d2430; --muted:#5f6b7a; --line:#d9dee5; --head:#24364b; --accent:#1f7a74;
+        --flag:#b3541e; --ok:#2d7d46; --bad:#a8322d; --paper:#f7f8fa; }
+* { box-sizing: border-box; }
+body { margin:0; font:14px/1.4 system-ui, sans-serif; color:var(--ink); background:var(--paper); }
+header { background:var(--head); color:#fff; padding:14px 22px; }
+header h1 { margin:0; font-size:19px; font-weight:600; }
+header p { margin:4px 0 0; color:#c9d4e0; }
+main { padding:14px 22px; }
+.plots { display:flex; flex-wrap:wrap; gap:18px; margin-bottom:12px; }
+.plots figure { margin:0; background:#fff; border:1px solid var(--line); border-radius:6px; padding:6px; }
+.hist .bar { fill:var(--accent); } .hist .axis { stroke:var(--muted); }
+.hist .cap { font-size:12px; font-weight:600; fill:var(--ink); }
+.hist .tick { font-size:10px; fill:var(--muted); }
+.controls { display:flex; flex-wrap:wrap; gap:14px; align-items:center; margin:8px 0 10px; }
+.controls input[type=search] { width:260px; padding:4px 6px; }
+#shown { color:var(--muted); }
+table { border-collapse:collapse; background:#fff; width:100%; }
+th, td { border-bottom:1px solid var(--line); padding:4px 8px; text-align:left; vertical-align:middle; }
+th { position:sticky; top:0; background:#e9edf2; cursor:pointer; user-select:none; white-space:nowrap; }
+th[data-dir=asc]::after { content:" \\25B2"; } th[data-dir=desc]::after { content:" \\25BC"; }
+td.num { text-align:right; font-variant-numeric:tabular-nums; }
+td.thumb img { display:block; max-width:160px; max-height:160px; }
+.status-ok { color:var(--ok); } .status-failed { color:var(--bad); font-weight:600; }
+.flag { display:inline-block; margin:1px 2px; padding:0 6px; border-radius:9px; font-size:12px;
+        background:#fbe9dc; color:var(--flag); border:1px solid #efc3a5; }
+.note { color:var(--muted); font-size:12px; max-width:360px; }
+.none { color:var(--muted); font-style:italic; }
+"""
+
+_SCRIPT = r"""
+(function () {
+  const table = document.getElementById('results');
+  const body = table.tBodies[0];
+  const heads = Array.from(table.tHead.rows[0].cells);
+  const search = document.getElementById('filter-text');
+  const status = document.getElementById('filter-status');
+  const flagged = document.getElementById('filter-flagged');
+  const shown = document.getElementById('shown');
+
+  function key(row, col, numeric) {
+    const v = row.cells[col].dataset.sort;
+    if (numeric) { const x = parseFloat(v); return isNaN(x) ? null : x; }
+    return (v === undefined ? row.cells[col].textContent : v).toLowerCase();
+  }
+  function sortBy(col, dir) {
+    const numeric = heads[col].dataset.type === 'num';
+    const rows = Array.from(body.rows);
+    rows.sort(function (a, b) {
+      const x = key(a, col, numeric), y = key(b, col, numeric);
+      if (x === null && y === null) return 0;
+      if (x === null) return 1;            // missing values last, either way
+      if (y === null) return -1;
+      const c = x < y ? -1 : x > y ? 1 : 0;
+      return dir === 'asc' ? c : -c;
+    });
+    rows.forEach(function (r) { body.appendChild(r); });
+    heads.forEach(function (h) { h.removeAttribute('data-dir'); });
+    heads[col].dataset.dir = dir;
+  }
+  heads.forEach(function (h, col) {
+    if (h.dataset.type === 'none') return;
+    h.addEventListener('click', function () {
+      sortBy(col, h.dataset.dir === 'asc' ? 'desc' : 'asc');
+    });
+  });
+  function applyFilter() {
+    const text = search.value.trim().toLowerCase();
+    let n = 0;
+    Array.from(body.rows).forEach(function (r) {
+      const ok = (!text || r.dataset.text.indexOf(text) >= 0)
+        && (status.value === 'all' || r.dataset.status === status.value)
+        && (!flagged.checked || r.dataset.flagged === '1');
+      r.hidden = !ok;
+      if (ok) n += 1;
+    });
+    shown.textContent = n + ' of ' + body.rows.length + ' images shown';
+  }
+  [search, status, flagged].forEach(function (el) {
+    el.addEventListener('input', applyFilter);
+    el.addEventListener('change', applyFilter);
+  });
+  applyFilter();
+  window.segcutReport = { sortBy: sortBy, applyFilter: applyFilter };
+
+  async function selftest() {
+    const out = { thumbnails: 0, thumbnails_ok: 0, rows: body.rows.length };
+    const imgs = Array.from(table.querySelectorAll('td.thumb img'));
+    await Promise.all(imgs.map(function (img) { return img.decode().catch(function () {}); }));
+    out.thumbnails = imgs.length;
+    out.thumbnails_ok = imgs.filter(function (i) { return i.complete && i.naturalWidth > 0; }).length;
+    const inputCol = heads.findIndex(function (h) { return h.dataset.key === 'input'; });
+    const names = function () { return Array.from(body.rows).map(function (r) { return r.dataset.input; }); };
+    out.initial = names();
+    const results = {};
+    heads.forEach(function (h, col) {
+      if (h.dataset.type === 'none') return;
+      h.click();
+      const asc = names();
+      h.click();
+      const desc = names();
+      results[h.dataset.key] = { asc: asc, desc: desc, dir: h.dataset.dir };
+    });
+    out.sorted = results;
+    sortBy(inputCol, 'asc');
+    search.value = out.initial.length ? out.initial[0].toLowerCase() : '';
+    applyFilter();
+    out.filter_text = search.value;
+    out.filter_visible = Array.from(body.rows).filter(function (r) { return !r.hidden; }).map(function (r) { return r.dataset.input; });
+    search.value = '';
+    flagged.checked = true;
+    applyFilter();
+    out.flagged_visible = Array.from(body.rows).filter(function (r) { return !r.hidden; }).map(function (r) { return r.dataset.input; });
+    flagged.checked = false;
+    applyFilter();
+    out.svg_plots = document.querySelectorAll('svg.hist').length;
+    out.done = true;
+    document.getElementById('selftest').textContent = JSON.stringify(out);
+  }
+  if (location.hash === '#selftest') {
+    selftest().catch(function (e) {
+      document.getElementById('selftest').textContent = JSON.stringify({ error: String(e) });
+    });
+  }
+})();
+"""
+
+# (key, heading, type) of the table columns; type "num" sorts numerically.
+_COLUMNS = (
+    ("thumbnail", "overlay", "none"),
+    ("input", "input", "text"),
+    ("status", "status", "text"),
+    ("flags", "flags", "text"),
+    ("foreground_fraction", "foreground", "num"),
+    ("cut_value", "cut value", "num"),
+    ("upper_bound", "upper bound", "num"),
+    ("gap", "gap", "num"),
+    ("n_superpixels", "superpixels", "num"),
+    ("seconds", "seconds", "num"),
+    ("notes", "warnings / error", "text"),
+)
+
+
+def _number_cell(value, text: str) -> str:
+    if value is None:
+        return '<td class="num" data-sort=""><span class="none">-</span></td>'
+    return f'<td class="num" data-sort="{float(value)!r}">{html.escape(text)}</td>'
+
+
+def _fmt(value, spec: str) -> str:
+    return "" if value is None else format(float(value), spec)
+
+
+def render_report(rows: Sequence[dict], *, title: str = "segcut run",
+                  flag_options: dict | None = None) -> str:
+    """Build the self-contained HTML report of a run.
+
+    Parameters
+    ----------
+    rows : sequence of dict
+        One per image, with ``input``, ``status``, ``foreground_fraction``,
+        ``cut_value``, ``upper_bound``, ``gap``, ``n_superpixels``, ``seconds``,
+        ``warnings`` (list of str), ``error`` (str or None) and optionally
+        ``thumbnail`` (PNG bytes) and ``overlay`` (a link, relative to the page).
+    title : str
+        Shown as the page heading.
+    flag_options : dict, optional
+        Thresholds passed to :func:`flag_row`.
+
+    Returns
+    -------
+    str
+        The page (UTF-8 text). It loads nothing from the network.
+
+    Examples
+    --------
+    >>> page = render_report([{"input": "a.png", "status": "ok", "foreground_fraction": 0.3,
+    ...                        "cut_value": 10.0, "upper_bound": 10.2, "gap": 0.0196,
+    ...                        "n_superpixels": 900, "seconds": 0.4, "warnings": []}])
+    >>> page.startswith("<!DOCTYPE html>"), page.count('<tr data-input='), "http" in page
+    (True, 1, False)
+    """
+    flag_options = dict(flag_options or {})
+    body_rows = []
+    n_failed = n_flagged = 0
+    for row in rows:
+        flags = flag_row(row, **flag_options)
+        n_flagged += bool(flags)
+        n_failed += row.get("status") != "ok"
+        name = str(row.get("input", ""))
+        status = str(row.get("status", ""))
+        warnings_ = [str(w) for w in (row.get("warnings") or [])]
+        notes = ([row["error"]] if row.get("error") else []) + warnings_
+        search_text = " ".join([name, status, *flags, *notes]).lower()
+        thumb = row.get("thumbnail")
+        if thumb:
+            src = "data:image/png;base64," + base64.b64encode(thumb).decode("ascii")
+            img = f'<img src="{src}" alt="overlay of {html.escape(name)}">'
+            link = row.get("overlay")
+            cell = f'<a href="{html.escape(link)}">{img}</a>' if link else img
+        else:
+            cell = '<span class="none">no overlay</span>'
+        gap = row.get("gap")
+        cells = [
+            f'<td class="thumb">{cell}</td>',
+            f'<td data-sort="{html.escape(name.lower())}">{html.escape(name)}</td>',
+            f'<td class="status-{html.escape(status)}">{html.escape(status)}</td>',
+            f'<td data-sort="{html.escape(" ".join(flags))}">'
+            + "".join(f'<span class="flag">{html.escape(f)}</span>' for f in flags) + "</td>",
+            _number_cell(row.get("foreground_fraction"), _fmt(row.get("foreground_fraction"), ".3f")),
+            _number_cell(row.get("cut_value"), _fmt(row.get("cut_value"), ".6g")),
+            _number_cell(row.get("upper_bound"), _fmt(row.get("upper_bound"), ".6g")),
+            _number_cell(gap, "" if gap is None else f"{100 * gap:.2f}%"),
+            _number_cell(row.get("n_superpixels"), _fmt(row.get("n_superpixels"), ".0f")),
+            _number_cell(row.get("seconds"), _fmt(row.get("seconds"), ".2f")),
+            '<td class="note">' + "<br>".join(html.escape(n) for n in notes) + "</td>",
+        ]
+        body_rows.append(
+            f'<tr data-input="{html.escape(name)}" data-status="{html.escape(status)}" '
+            f'data-flagged="{int(bool(flags))}" data-text="{html.escape(search_text)}">'
+            + "".join(cells) + "</tr>")
+    heads = "".join(f'<th data-key="{key}" data-type="{kind}">{html.escape(label)}</th>'
+                    for key, label, kind in _COLUMNS)
+    ok_rows = [r for r in rows if r.get("status") == "ok"]
+    gap_plot = histogram_svg([r.get("gap") for r in ok_rows], title="certified gap",
+                             scale=100.0, unit="%")
+    fg_plot = histogram_svg([r.get("foreground_fraction") for r in ok_rows], lo=0.0, hi=1.0,
+                            title="foreground fraction")
+    rules = {**FLAG_RULES, **flag_options}
+    summary = (f"{len(rows)} images: {len(rows) - n_failed} split, {n_failed} failed, "
+               f"{n_flagged} flagged (foreground below {rules['min_foreground']:.0%} or above "
+               f"{rules['max_foreground']:.0%}, gap above {rules['max_gap']:.0%}, warnings, "
+               f"failures)")
+    return "\n".join([
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{html.escape(title)} - segcut report</title>",
+        f"<style>{_STYLE}</style></head><body>",
+        f"<header><h1>{html.escape(title)}</h1><p>{html.escape(summary)}</p></header>",
+        "<main>",
+        f'<section class="plots"><figure>{gap_plot}</figure><figure>{fg_plot}</figure></section>',
+        '<section class="controls">'
+        '<label>find <input type="search" id="filter-text" placeholder="name, flag, warning"></label>'
+        '<label>status <select id="filter-status"><option value="all">all</option>'
+        '<option value="ok">ok</option><option value="failed">failed</option></select></label>'
+        '<label><input type="checkbox" id="filter-flagged"> flagged only</label>'
+        '<span id="shown"></span></section>',
+        f'<table id="results"><thead><tr>{heads}</tr></thead><tbody>',
+        *body_rows,
+        "</tbody></table>",
+        '<pre id="selftest" hidden></pre>',
+        f"<script>{_SCRIPT}</script>",
+        "</main></body></html>",
+        "",
+    ])

@@ -1,0 +1,402 @@
+"""Folder runs (segcut.batch): finding inputs, resuming, refusing mixed configs, surviving
+SIGKILL, isolating bad files, and equal bytes from every executor.
+
+The scenes are generated here (one disc on a plain ground under noise). Each mask a
+run writes is checked against a direct call of ``segcut.split`` on the same file with
+the record's seed, so a mask written under the wrong name, or with a seed that depends
+on worker order, fails.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from PIL import Image
+
+from segcut.batch import (SUMMARY_COLUMNS, find_inputs, hash_file, image_seed, load_records,
+                          run_batch)
+from segcut.config import SplitConfig
+from segcut.errors import ConfigError, InputError
+
+PROJECT_ROOT = Path(__file__).resolve().parent.parent
+SIZE = 96  # above the pipeline's pixel-grid limit: the superpixel path photographs take
+
+
+def scene(index: int, size: int = SIZE):
+    """RGB uint8 image of a disc (foreground) on a plain ground, and the disc's mask."""
+    rng = np.random.default_rng(1000 + index)
+    yy, xx = np.mgrid[0:size, 0:size]
+    cy, cx = rng.uniform(0.35, 0.65, 2) * size
+    radius = rng.uniform(0.16, 0.26) * size
+    truth = (yy - cy) ** 2 + (xx - cx) ** 2 < radius ** 2
+    fg, bg = rng.uniform(0.0, 0.4, 3), rng.uniform(0.6, 1.0, 3)
+    if index % 2:
+        fg, bg = bg, fg
+    image = np.where(truth[..., None], fg, bg) + rng.normal(0, 0.04, (size, size, 3))
+    return (np.clip(image, 0, 1) * 255).astype(np.uint8), truth
+
+
+def write_scenes(folder: Path, names) -> dict:
+    truths = {}
+    for index, name in enumerate(names):
+        image, truth = scene(index)
+        path = folder / name
+        path.parent.mkdir(parents=True, exist_ok=True)
+        Image.fromarray(image).save(path)
+        truths[name] = truth
+    return truths
+
+
+def direct_mask(path: Path, seed: int) -> np.ndarray:
+    """The mask of one file from segcut.split itself (the engine, outside any batch)."""
+    from segcut import io
+    from segcut.pipeline import split
+
+    data = io.read_image(path)
+    return split(data.array, SplitConfig(), channel_axis=data.channel_axis, rng=seed).mask
+
+
+def read_mask(path: Path) -> np.ndarray:
+    return np.asarray(Image.open(path)) > 127
+
+
+def folder_bytes(folder: Path) -> dict:
+    return {str(p.relative_to(folder)): p.read_bytes() for p in sorted(folder.rglob("*"))
+            if p.is_file()}
+
+
+NAMES = ["a.png", "b.png", "sub/c.png", "sub/deeper/d.png"]
+
+
+@pytest.fixture(scope="module")
+def scenes(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("scenes")
+    truths = write_scenes(folder, NAMES)
+    return folder, truths
+
+
+@pytest.fixture(scope="module")
+def serial_run(scenes, tmp_path_factory):
+    folder, _ = scenes
+    out = tmp_path_factory.mktemp("serial") / "out"
+    summary = run_batch([folder], out, SplitConfig(), jobs=1, report=False)
+    return out, summary
+
+
+# --- finding inputs -------------------------------------------------------------------
+
+def test_find_inputs_recurses_sorts_and_lists_skipped(tmp_path):
+    for name in ["z.png", "a/b.JPG", "a/notes.txt", ".hidden.png", "a/.cache/x.png",
+                 "données/é.tif", "m/x.bmp", "m/x.png"]:
+        (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
+        (tmp_path / name).write_bytes(b"")
+    listing = find_inputs([tmp_path])
+    assert [i.input for i in listing.items] == ["a/b.JPG", "données/é.tif", "m/x.bmp", "z.png"]
+    reasons = {Path(p).name: r for p, r in listing.skipped}
+    assert reasons["notes.txt"] == "not a known image type (.txt)"
+    # m/x.png would write masks/m/x.png, already taken by m/x.bmp
+    assert reasons["x.png"].startswith("output name 'm/x' is already used by")
+
+
+def test_find_inputs_include_exclude_and_ignore(tmp_path):
+    for name in ["keep/a.png", "keep/b_mask.png", "drop/c.png", "out/masks/a.png"]:
+        (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
+        (tmp_path / name).write_bytes(b"")
+    listing = find_inputs([tmp_path], include=["keep/*", "c.png"], exclude=["*_mask.png"],
+                          ignore=[tmp_path / "out"])
+    assert [i.input for i in listing.items] == ["drop/c.png", "keep/a.png"]
+    file_listing = find_inputs([tmp_path / "keep" / "a.png"])
+    assert [i.input for i in file_listing.items] == ["a.png"]
+
+
+def test_find_inputs_missing_path_is_one_line_error(tmp_path):
+    with pytest.raises(InputError, match=r"nothere: no such file or folder$"):
+        find_inputs([tmp_path / "nothere"])
+
+
+def test_hash_file_matches_hashlib(tmp_path):
+    import hashlib
+
+    data = os.urandom(3 * (1 << 20) + 17)  # more than one read chunk
+    (tmp_path / "x").write_bytes(data)
+    assert hash_file(tmp_path / "x") == "sha256:" + hashlib.sha256(data).hexdigest()
+
+
+@settings(max_examples=30)
+@given(st.integers(0, 2**31), st.text(min_size=1, max_size=20))
+def test_image_seed_depends_only_on_its_arguments(seed, text):
+    value = image_seed(seed, text)
+    assert value == image_seed(seed, text)
+    assert 0 <= value < 2**63
+    assert value != image_seed(seed, text + "x")
+
+
+# --- records.jsonl ------------------------------------------------------------------------
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.sampled_from(["a.png", "b.png", "c/d.png"]), min_size=1, max_size=8),
+       st.integers(0, 10_000))
+def test_load_records_keeps_last_whole_line_per_input(tmp_path_factory, inputs, cut):
+    folder = tmp_path_factory.mktemp("records")
+    lines = [json.dumps({"input": name, "n": k}) + "\n" for k, name in enumerate(inputs)]
+    data = "".join(lines).encode()
+    torn = data[: len(data) - 1 - cut % len(lines[-1])]  # the last line loses 1+ bytes
+    (folder / "records.jsonl").write_bytes(torn)
+    expected = {}
+    for k, name in enumerate(inputs[:-1]):
+        expected[name] = {"input": name, "n": k}
+    if torn.endswith(b"}"):  # only the newline was lost: the line is whole JSON
+        expected[inputs[-1]] = {"input": inputs[-1], "n": len(inputs) - 1}
+    assert load_records(folder) == expected
+
+
+# --- a run --------------------------------------------------------------------------------
+
+def test_serial_run_writes_everything(scenes, serial_run):
+    folder, truths = scenes
+    out, summary = serial_run
+    assert (summary.total, summary.done, summary.failed, summary.resumed) == (4, 4, 0, 0)
+    records = load_records(out)
+    assert sorted(records) == sorted(NAMES)
+    lines = (out / "records.jsonl").read_text().splitlines()
+    assert len(lines) == len(NAMES)  # compacted: one line per input
+    for name, truth in truths.items():
+        r = records[name]
+        assert r["status"] == "ok" and r["input"] == name
+        assert r["config_hash"] == SplitConfig().config_hash()
+        assert r["input_hash"] == hash_file(folder / name)
+        assert r["seed"] == image_seed(0, r["input_hash"])
+        assert r["upper_bound"] >= r["value"] - 1e-6 * abs(r["upper_bound"])
+        assert set(r["versions"]) >= {"segcut", "numpy", "python"}
+        stem = name.rsplit(".", 1)[0]
+        assert r["mask"] == f"masks/{stem}.png" and r["overlay"] == f"overlays/{stem}.png"
+        mask = read_mask(out / r["mask"])
+        assert mask.shape == truth.shape
+        assert np.array_equal(mask, direct_mask(folder / name, r["seed"])), name
+        assert abs(mask.mean() - r["foreground_fraction"]) < 1e-9
+    with open(out / "summary.csv", newline="", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))
+    assert tuple(rows[0]) == SUMMARY_COLUMNS
+    assert [row["input"] for row in rows] == sorted(NAMES)
+    for row in rows:
+        assert float(row["cut_value"]) == records[row["input"]]["value"]
+        assert float(row["gap"]) == records[row["input"]]["gap"]
+    run_toml = (out / "run.toml").read_text()
+    assert SplitConfig.from_toml(run_toml) == SplitConfig()
+    assert f"config hash {SplitConfig().config_hash()}" in run_toml
+
+
+def test_resume_skips_finished_and_redoes_changed(scenes, serial_run, tmp_path):
+    folder, _ = scenes
+    out = tmp_path / "out"
+    work = tmp_path / "in"
+    write_scenes(work, NAMES)
+    first = run_batch([work], out, SplitConfig(), jobs=1, report=False)
+    assert first.done == 4
+    before = folder_bytes(out / "masks")
+    mtimes = {p: p.stat().st_mtime_ns for p in (out / "masks").rglob("*.png")}
+    again = run_batch([work], out, SplitConfig(), jobs=1, report=False)
+    assert (again.done, again.resumed, again.failed) == (4, 4, 0)
+    assert {p: p.stat().st_mtime_ns for p in mtimes} == mtimes  # nothing rewritten
+    # a changed file is redone (content hash), the others are not
+    image, _ = scene(7)
+    Image.fromarray(image).save(work / "b.png")
+    changed = run_batch([work], out, SplitConfig(), jobs=1, report=False)
+    assert changed.resumed == 3 and changed.done == 4
+    assert load_records(out)["b.png"]["input_hash"] == hash_file(work / "b.png")
+    assert folder_bytes(out / "masks")["b.png"] != before["b.png"]
+    # force redoes all, with the same bytes
+    forced = run_batch([work], out, SplitConfig(), jobs=1, report=False, force=True)
+    assert forced.resumed == 0 and forced.done == 4
+    assert len((out / "records.jsonl").read_text().splitlines()) == 4
+    # a deleted mask is redone
+    (out / "masks" / "a.png").unlink()
+    healed = run_batch([work], out, SplitConfig(), jobs=1, report=False)
+    assert healed.resumed == 3 and (out / "masks" / "a.png").is_file()
+
+
+def test_folder_of_another_config_is_refused_untouched(serial_run, scenes):
+    folder, _ = scenes
+    out, _ = serial_run
+    before = folder_bytes(out)
+    other = SplitConfig(prior=("border",))
+    with pytest.raises(ConfigError, match=r"holds results of a different configuration"):
+        run_batch([folder], out, other, jobs=1, report=False)
+    assert folder_bytes(out) == before
+
+
+def test_torn_record_and_stale_temporary_are_cleaned(scenes, serial_run, tmp_path):
+    import shutil
+
+    folder, _ = scenes
+    out = tmp_path / "out"
+    shutil.copytree(serial_run[0], out)
+    good = (out / "records.jsonl").read_bytes()
+    with open(out / "records.jsonl", "ab") as fh:
+        fh.write(b'{"input": "a.png", "status": "ok", "val')  # a kill mid-line
+    stale = out / "masks" / "sub" / ".c.4242-0badf00d.tmp.png"
+    stale.write_bytes(b"\x89PNG half")
+    summary = run_batch([folder], out, SplitConfig(), jobs=1, report=False)
+    assert summary.resumed == 4
+    assert not stale.exists()
+    assert (out / "records.jsonl").read_bytes() == good
+
+
+def test_bad_files_become_records_and_the_run_goes_on(tmp_path):
+    from PIL import ImageCms  # noqa: F401 - CMYK JPEG support is part of Pillow
+
+    src = tmp_path / "in"
+    src.mkdir()
+    image, truth = scene(0)
+    gray16 = (image.mean(axis=2) * 257).astype(np.uint16)
+    import tifffile
+
+    tifffile.imwrite(src / "deep16.tif", gray16)
+    Image.fromarray(image).convert("P", palette=Image.Palette.ADAPTIVE, colors=16).save(
+        src / "palette.png")
+    Image.fromarray(image).convert("CMYK").save(src / "cmyk.jpg", quality=95)
+    # stored 96 wide x 60 high; orientation 6 says "rotate 90 degrees clockwise to view"
+    stored = Image.fromarray(image[:60])
+    exif = Image.Exif()
+    exif[0x0112] = 6
+    stored.save(src / "rotated.jpg", quality=95, exif=exif)
+    Image.fromarray(image).save(src / "naïve café ü.png")
+    (src / "empty.png").write_bytes(b"")
+    full = (tmp_path / "full.png")
+    Image.fromarray(image).save(full)
+    (src / "truncated.png").write_bytes(full.read_bytes()[:300])
+    (src / "text.png").write_text("this is not an image\n")
+    (src / "readme.md").write_text("not an image type at all\n")
+
+    out = tmp_path / "out"
+    summary = run_batch([src], out, SplitConfig(), jobs=1, report=True)
+    records = load_records(out)
+    ok = {"deep16.tif", "palette.png", "cmyk.jpg", "rotated.jpg", "naïve café ü.png"}
+    bad = {"empty.png", "truncated.png", "text.png"}
+    assert set(records) == ok | bad
+    assert {k for k, r in records.items() if r["status"] == "ok"} == ok
+    for name in bad:
+        error = records[name]["error"]
+        assert "\n" not in error and "Traceback" not in error
+        assert error.startswith(str(src / name) + ": "), error
+    assert "empty" in records["empty.png"]["error"]
+    assert [Path(p).name for p, _ in summary.skipped] == ["readme.md"]
+    assert summary.failed == 3 and summary.done == 5
+    rotated = read_mask(out / "masks" / "rotated.png")
+    assert rotated.shape == (96, 60)  # EXIF orientation applied before splitting
+    for name in ok:
+        stem = name.rsplit(".", 1)[0]
+        assert np.array_equal(read_mask(out / "masks" / f"{stem}.png"),
+                              direct_mask(src / name, records[name]["seed"])), name
+    assert (out / "report.html").is_file()
+
+
+# --- processes, kills and executors -------------------------------------------------------------
+
+def _cli(*args) -> list:
+    return [sys.executable, "-m", "segcut_cli", *map(str, args)]
+
+
+def test_sigkill_mid_run_then_resume_matches_uninterrupted(tmp_path):
+    names = [f"s{k:02d}.png" for k in range(14)]
+    src = tmp_path / "in"
+    write_scenes(src, names)
+    reference = tmp_path / "reference"
+    run_batch([src], reference, SplitConfig(), jobs=1, report=False)
+
+    out = tmp_path / "out"
+    process = subprocess.Popen(_cli("split", src, "-o", out, "--jobs", "2", "--quiet",
+                                    "--no-report"), cwd=PROJECT_ROOT, start_new_session=True,
+                               stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    records = out / "records.jsonl"
+    deadline = time.monotonic() + 90
+    try:
+        while time.monotonic() < deadline and process.poll() is None:
+            if records.is_file() and records.read_bytes().count(b"\n") >= 3:
+                break
+            time.sleep(0.02)
+    finally:
+        os.killpg(process.pid, signal.SIGKILL)  # the run and its workers, without warning
+        process.wait()
+    assert process.returncode == -signal.SIGKILL, process.stderr.read().decode()
+    process.stderr.close()
+    finished = load_records(out)
+    assert 3 <= len(finished) < len(names)  # killed part-way
+    for path in (out / "masks").glob("*.png"):  # every mask in place is whole
+        with Image.open(path) as im:
+            im.load()
+
+    summary = run_batch([src], out, SplitConfig(), jobs=2, report=False)
+    assert summary.resumed == len(finished) and summary.done == len(names)
+    assert len((out / "records.jsonl").read_text().splitlines()) == len(names)
+    assert folder_bytes(out / "masks") == folder_bytes(reference / "masks")
+    assert folder_bytes(out / "overlays") == folder_bytes(reference / "overlays")
+    assert not [p for p in out.rglob(".*") if p.is_file()]  # no temporaries left
+
+
+def test_ctrl_c_exits_130_and_leaves_valid_outputs(tmp_path):
+    names = [f"s{k:02d}.png" for k in range(10)]
+    src = tmp_path / "in"
+    write_scenes(src, names)
+    out = tmp_path / "out"
+    process = subprocess.Popen(_cli("split", src, "-o", out, "--jobs", "1", "--quiet"),
+                               cwd=PROJECT_ROOT, start_new_session=True,
+                               stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    records = out / "records.jsonl"
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline and process.poll() is None:
+        if records.is_file() and records.read_bytes().count(b"\n") >= 2:
+            break
+        time.sleep(0.02)
+    os.killpg(process.pid, signal.SIGINT)
+    _, err = process.communicate(timeout=60)
+    assert process.returncode == 130, err.decode()
+    assert err.decode().strip().splitlines()[-1] == "segcut: interrupted"
+    finished = load_records(out)
+    assert 2 <= len(finished) < len(names)
+    with open(out / "summary.csv", newline="", encoding="utf-8") as fh:
+        assert len(list(csv.DictReader(fh))) == len(finished)
+    for record in finished.values():
+        with Image.open(out / record["mask"]) as im:
+            im.load()
+
+
+def test_process_pool_and_dask_local_cluster_write_identical_bytes(scenes, serial_run, tmp_path):
+    folder, _ = scenes
+    reference, _ = serial_run
+    pool = run_batch([folder], tmp_path / "pool", SplitConfig(), jobs=2, report=False)
+    assert pool.done == 4
+    dask = run_batch([folder], tmp_path / "dask", SplitConfig(), dask_local=2, report=False)
+    assert dask.done == 4
+    for name in ("masks", "overlays"):
+        expected = folder_bytes(reference / name)
+        assert len(expected) == 4
+        assert folder_bytes(tmp_path / "pool" / name) == expected
+        assert folder_bytes(tmp_path / "dask" / name) == expected
+    timing = {"seconds", "stage_seconds"}
+    strip = lambda rs: {k: {f: v for f, v in r.items() if f not in timing} for k, r in rs.items()}
+    assert strip(load_records(tmp_path / "dask")) == strip(load_records(reference))
+    assert strip(load_records(tmp_path / "pool")) == strip(load_records(reference))
+
+
+def test_bad_arguments_are_refused_before_any_work(tmp_path, scenes):
+    folder, _ = scenes
+    with pytest.raises(ValueError, match="jobs must be >= 1"):
+        run_batch([folder], tmp_path / "o", SplitConfig(), jobs=0)
+    with pytest.raises(ValueError, match="not both"):
+        run_batch([folder], tmp_path / "o", SplitConfig(), scheduler="tcp://x:1", dask_local=1)
+    (tmp_path / "file").write_text("x")
+    with pytest.raises(InputError, match="exists and is not a folder"):
+        run_batch([folder], tmp_path / "file", SplitConfig())
+    assert not (tmp_path / "o").exists()
