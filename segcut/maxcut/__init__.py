@@ -19,6 +19,8 @@ from ._common import (
     unregister_method,
 )
 from . import local  # noqa: F401  (registers "local")
+from . import tabu  # noqa: F401,E402  (registers "tabu", the default)
+from . import exact  # noqa: F401,E402  (registers "exact")
 
 __all__ = [
     "CutResult",

@@ -74,3 +74,409 @@ def descend_1flip(indptr, indices, weights, sides, gains, order, tol, max_moves)
                     queued[j] = True
                     size += 1
     return moves
+
+
+# --- random numbers --------------------------------------------------------------------
+# A tiny xorshift64* generator whose whole state is one uint64 in a 1-element array, so a
+# search can stop after any move and resume with exactly the same stream.
+
+@njit(cache=True)
+def rand_u64(state):
+    """Next 64-bit pseudo-random integer; advances ``state[0]``."""
+    x = state[0]
+    x ^= x >> np.uint64(12)
+    x ^= x << np.uint64(25)
+    x ^= x >> np.uint64(27)
+    state[0] = x
+    return x * np.uint64(2685821657736338717)
+
+
+@njit(cache=True)
+def rand_below(state, bound):
+    """Pseudo-random integer in ``0 .. bound - 1`` (``bound >= 1``)."""
+    return np.int64((rand_u64(state) >> np.uint64(11)) % np.uint64(bound))
+
+
+# --- tournament trees over vertex gains ------------------------------------------------
+# ``win`` has 2 * size entries (size = power of two >= n). Leaf ``size + v`` holds vertex v
+# (or -1 for padding); an inner node holds the better of its children. A vertex's key is
+# its gain when ``member[v] == want`` and minus infinity otherwise; ties go to the larger
+# ``tie`` value, a random number refreshed whenever the vertex's gain changes.
+
+@njit(cache=True)
+def _better(a, b, gains, tie, member, want):
+    if a < 0:
+        return b
+    if b < 0:
+        return a
+    ka = gains[a] if member[a] == want else -np.inf
+    kb = gains[b] if member[b] == want else -np.inf
+    if ka > kb:
+        return a
+    if kb > ka:
+        return b
+    return a if tie[a] >= tie[b] else b
+
+
+@njit(cache=True)
+def tree_build(win, size, n, gains, tie, member, want):
+    """Fill a tournament tree from scratch in O(size)."""
+    for v in range(size):
+        win[size + v] = v if v < n else -1
+    for node in range(size - 1, 0, -1):
+        win[node] = _better(win[2 * node], win[2 * node + 1], gains, tie, member, want)
+
+
+@njit(cache=True)
+def tree_update(win, size, v, gains, tie, member, want):
+    """Re-play the matches on the path from leaf ``v`` to the root: O(log n)."""
+    node = (size + v) >> 1
+    while node >= 1:
+        win[node] = _better(win[2 * node], win[2 * node + 1], gains, tie, member, want)
+        node >>= 1
+
+
+@njit(cache=True)
+def tree_best(win, gains, member, want):
+    """Vertex with the largest key, or -1 when no vertex has ``member == want``."""
+    v = win[1]
+    if v < 0 or member[v] != want:
+        return -1
+    return v
+
+
+# --- binary min-heap of tabu expiry times -------------------------------------------------
+
+@njit(cache=True)
+def _heap_push(heap_t, heap_v, size, t, v):
+    k = size
+    heap_t[k] = t
+    heap_v[k] = v
+    while k > 0:
+        parent = (k - 1) >> 1
+        if heap_t[parent] <= heap_t[k]:
+            break
+        heap_t[parent], heap_t[k] = heap_t[k], heap_t[parent]
+        heap_v[parent], heap_v[k] = heap_v[k], heap_v[parent]
+        k = parent
+    return size + 1
+
+
+@njit(cache=True)
+def _heap_pop(heap_t, heap_v, size):
+    size -= 1
+    heap_t[0] = heap_t[size]
+    heap_v[0] = heap_v[size]
+    k = 0
+    while True:
+        left = 2 * k + 1
+        if left >= size:
+            break
+        child = left
+        if left + 1 < size and heap_t[left + 1] < heap_t[left]:
+            child = left + 1
+        if heap_t[k] <= heap_t[child]:
+            break
+        heap_t[child], heap_t[k] = heap_t[k], heap_t[child]
+        heap_v[child], heap_v[k] = heap_v[k], heap_v[child]
+        k = child
+    return size
+
+
+# --- tabu search with perturbations ---------------------------------------------------------
+
+# Integer state slots of ``tabu_search`` (the ``istate`` array).
+TS_MOVE = 0          # moves made so far
+TS_LAST_BEST = 1     # move count at the last new best
+TS_HEAP_SIZE = 2     # entries in the expiry heap
+TS_PENDING = 3       # 1 when the current sides are a best not yet copied
+TS_STRENGTH = 4      # vertices flipped by the next perturbation
+TS_N_PERTURB = 5     # perturbations made
+TS_BEST_AT_PERTURB = 6  # 1 when the best improved since the last perturbation
+TS_N_ISTATE = 7
+
+# Float state slots (the ``fstate`` array).
+TS_CURRENT = 0       # cut value of the current sides (kept incrementally)
+TS_BEST = 1          # best cut value seen
+TS_N_FSTATE = 2
+
+
+@njit(cache=True)
+def cut_of(indptr, indices, weights, sides):
+    """Cut value ``sum_{i<j} w_ij [x_i != x_j]`` from the CSR arrays."""
+    n = indptr.shape[0] - 1
+    total = 0.0
+    for i in range(n):
+        for k in range(indptr[i], indptr[i + 1]):
+            j = indices[k]
+            if i < j and sides[i] != sides[j]:
+                total += weights[k]
+    return total
+
+
+@njit(cache=True)
+def _tabu_reset(indptr, indices, weights, sides, gains, tie, tabu, win_free, win_tabu,
+                size, istate, rng_state):
+    n = sides.shape[0]
+    compute_gains(indptr, indices, weights, sides, gains)
+    for v in range(n):
+        tabu[v] = 0
+        tie[v] = rand_u64(rng_state)
+    istate[TS_HEAP_SIZE] = 0
+    tree_build(win_free, size, n, gains, tie, tabu, 0)
+    tree_build(win_tabu, size, n, gains, tie, tabu, 1)
+
+
+@njit(cache=True)
+def tabu_init(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, win_free,
+              win_tabu, size, best_sides, istate, fstate, rng_state, strength):
+    """Set up the search state for the start ``sides``."""
+    n = sides.shape[0]
+    for v in range(n):
+        tabu_until[v] = 0
+        best_sides[v] = sides[v]
+    for k in range(istate.shape[0]):
+        istate[k] = 0
+    istate[TS_STRENGTH] = strength
+    value = cut_of(indptr, indices, weights, sides)
+    fstate[TS_CURRENT] = value
+    fstate[TS_BEST] = value
+    _tabu_reset(indptr, indices, weights, sides, gains, tie, tabu, win_free, win_tabu,
+                size, istate, rng_state)
+
+
+@njit(cache=True)
+def _scan_best(gains, tie, tabu):
+    """Best free and best tabu vertex by a full scan (same keys as the trees)."""
+    a = -1
+    b = -1
+    for v in range(gains.shape[0]):
+        if tabu[v] == 0:
+            if a < 0 or gains[v] > gains[a] or (gains[v] == gains[a] and tie[v] > tie[a]):
+                a = v
+        elif b < 0 or gains[v] > gains[b] or (gains[v] == gains[b] and tie[v] > tie[b]):
+            b = v
+    return a, b
+
+
+@njit(cache=True)
+def tabu_search(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, win_free,
+                win_tabu, size, heap_t, heap_v, best_sides, istate, fstate, rng_state,
+                tenure_base, tenure_spread, stall_moves, min_strength, max_strength,
+                tol, target, n_moves, use_scan):
+    """Run ``n_moves`` moves of tabu search; all state lives in the arrays passed in.
+
+    Each move flips the vertex with the largest gain among those not tabu (ties broken
+    at random), or a tabu vertex whose flip would beat the best cut seen (aspiration).
+    A flipped vertex stays tabu for ``tenure_base + U(0, tenure_spread)`` moves. After
+    ``stall_moves`` moves without a new best, the search returns to the best sides and
+    flips ``istate[TS_STRENGTH]`` random vertices; the strength grows by
+    ``min_strength`` after each perturbation that did not lead to a new best (up to
+    ``max_strength``) and falls back to ``min_strength`` after one that did.
+
+    With ``use_scan`` False, selection uses two tournament trees (free and tabu
+    vertices), so a move costs O(deg log n), not O(n); with ``use_scan`` True it scans
+    all vertices, which is faster on small dense graphs. Stops early when the best reaches ``target``. The best
+    sides are in ``best_sides`` on return. Returns the number of moves made.
+    """
+    n = sides.shape[0]
+    done = 0
+    while done < n_moves:
+        if fstate[TS_BEST] >= target:
+            break
+        t = istate[TS_MOVE]
+        # free the vertices whose tenure ends now
+        hs = istate[TS_HEAP_SIZE]
+        while hs > 0 and heap_t[0] <= t:
+            v = heap_v[0]
+            expiry = heap_t[0]
+            hs = _heap_pop(heap_t, heap_v, hs)
+            if tabu[v] == 1 and tabu_until[v] == expiry:
+                tabu[v] = 0
+                if not use_scan:
+                    tree_update(win_free, size, v, gains, tie, tabu, 0)
+                    tree_update(win_tabu, size, v, gains, tie, tabu, 1)
+        istate[TS_HEAP_SIZE] = hs
+
+        # perturbation: back to the best, then a random jump
+        if t - istate[TS_LAST_BEST] > stall_moves:
+            if istate[TS_PENDING] == 1:
+                for k in range(n):
+                    best_sides[k] = sides[k]
+                istate[TS_PENDING] = 0
+            if istate[TS_BEST_AT_PERTURB] == 1 or istate[TS_N_PERTURB] == 0:
+                istate[TS_STRENGTH] = min_strength
+            else:
+                istate[TS_STRENGTH] = min(max_strength, istate[TS_STRENGTH] + min_strength)
+            istate[TS_BEST_AT_PERTURB] = 0
+            istate[TS_N_PERTURB] += 1
+            for k in range(n):
+                sides[k] = best_sides[k]
+            compute_gains(indptr, indices, weights, sides, gains)
+            current = fstate[TS_BEST]
+            for _ in range(istate[TS_STRENGTH]):
+                v = rand_below(rng_state, n)
+                current += gains[v]
+                flip_vertex(indptr, indices, weights, sides, gains, v)
+            fstate[TS_CURRENT] = current
+            _tabu_reset(indptr, indices, weights, sides, gains, tie, tabu, win_free,
+                        win_tabu, size, istate, rng_state)
+            istate[TS_LAST_BEST] = t
+            hs = 0
+
+        # choose the move
+        if use_scan:
+            a, b = _scan_best(gains, tie, tabu)
+        else:
+            a = tree_best(win_free, gains, tabu, 0)
+            b = tree_best(win_tabu, gains, tabu, 1)
+        current = fstate[TS_CURRENT]
+        if b >= 0 and current + gains[b] > fstate[TS_BEST] + tol and (a < 0 or gains[b] > gains[a]):
+            v = b
+        elif a >= 0:
+            v = a
+        else:
+            v = b
+        if istate[TS_PENDING] == 1 and gains[v] <= tol:
+            # the current sides are the best seen and are about to get worse: keep them
+            for k in range(n):
+                best_sides[k] = sides[k]
+            istate[TS_PENDING] = 0
+
+        # make the move
+        current += gains[v]
+        xi = sides[v]
+        for k in range(indptr[v], indptr[v + 1]):
+            j = indices[k]
+            gains[j] -= 2.0 * weights[k] * xi * sides[j]
+            tie[j] = rand_u64(rng_state)
+            if use_scan:
+                continue
+            if tabu[j] == 1:
+                tree_update(win_tabu, size, j, gains, tie, tabu, 1)
+            else:
+                tree_update(win_free, size, j, gains, tie, tabu, 0)
+        sides[v] = -xi
+        gains[v] = -gains[v]
+        tie[v] = rand_u64(rng_state)
+        tenure = tenure_base
+        if tenure_spread > 0:
+            tenure += rand_below(rng_state, tenure_spread + 1)
+        tabu[v] = 1
+        tabu_until[v] = t + 1 + tenure
+        if hs >= heap_t.shape[0]:
+            # cannot happen when the heap holds tenure_base + tenure_spread + 3 entries;
+            # kept as a guard: end the oldest tenure early
+            u = heap_v[0]
+            expiry = heap_t[0]
+            hs = _heap_pop(heap_t, heap_v, hs)
+            if tabu[u] == 1 and tabu_until[u] == expiry and u != v:
+                tabu[u] = 0
+                if not use_scan:
+                    tree_update(win_free, size, u, gains, tie, tabu, 0)
+                    tree_update(win_tabu, size, u, gains, tie, tabu, 1)
+        hs = _heap_push(heap_t, heap_v, hs, t + 1 + tenure, v)
+        istate[TS_HEAP_SIZE] = hs
+        if not use_scan:
+            tree_update(win_free, size, v, gains, tie, tabu, 0)
+            tree_update(win_tabu, size, v, gains, tie, tabu, 1)
+
+        fstate[TS_CURRENT] = current
+        istate[TS_MOVE] = t + 1
+        done += 1
+        if current > fstate[TS_BEST] + tol:
+            fstate[TS_BEST] = current
+            istate[TS_LAST_BEST] = t + 1
+            istate[TS_PENDING] = 1
+            istate[TS_BEST_AT_PERTURB] = 1
+    if istate[TS_PENDING] == 1:
+        for k in range(n):
+            best_sides[k] = sides[k]
+        istate[TS_PENDING] = 0
+    return done
+
+
+# --- branch and bound for small graphs -----------------------------------------------------
+
+@njit(cache=True)
+def _bb_assign(w, d, side, x, s_plus, s_minus, state_f):
+    n = x.shape[0]
+    x[d] = side
+    if side == 1:
+        state_f[0] += s_plus[d]
+        for v in range(d + 1, n):
+            s_minus[v] += w[v, d]
+    else:
+        state_f[0] += s_minus[d]
+        for v in range(d + 1, n):
+            s_plus[v] += w[v, d]
+
+
+@njit(cache=True)
+def _bb_unassign(w, d, x, s_plus, s_minus, state_f):
+    n = x.shape[0]
+    if x[d] == 1:
+        state_f[0] -= s_plus[d]
+        for v in range(d + 1, n):
+            s_minus[v] -= w[v, d]
+    else:
+        state_f[0] -= s_minus[d]
+        for v in range(d + 1, n):
+            s_plus[v] -= w[v, d]
+    x[d] = 0
+
+
+@njit(cache=True)
+def branch_and_bound(w, rest, x, best_x, s_plus, s_minus, choice, state_i, state_f, eps, max_nodes):
+    """Depth-first branch and bound for max-cut on a small dense weight matrix ``w``.
+
+    Vertices are assigned in index order (vertex 0 is fixed on side +1). For the
+    unassigned vertices ``s_plus[v]`` / ``s_minus[v]`` hold the weight v would cut on
+    side +1 / -1 against the assigned ones, so
+    ``bound = cut so far + sum_v max(s_plus[v], s_minus[v]) + rest[d]`` with ``rest[d]``
+    the positive weight among the vertices from ``d`` on. Subtrees whose bound does
+    not beat the incumbent ``state_f[1]`` by more than ``eps`` are pruned.
+
+    All state lives in the arrays (``state_i = [depth, nodes]``,
+    ``state_f = [cut so far, best]``), so the search can stop after ``max_nodes``
+    nodes and resume. Returns True when the search is complete.
+    """
+    n = x.shape[0]
+    d = state_i[0]
+    nodes = 0
+    while d >= 1:
+        if nodes >= max_nodes:
+            state_i[0] = d
+            state_i[1] += nodes
+            return False
+        if d == n:
+            if state_f[0] > state_f[1]:
+                state_f[1] = state_f[0]
+                for k in range(n):
+                    best_x[k] = x[k]
+            d -= 1
+            _bb_unassign(w, d, x, s_plus, s_minus, state_f)
+            continue
+        if choice[d] >= 2:
+            choice[d] = 0
+            d -= 1
+            if d >= 1:
+                _bb_unassign(w, d, x, s_plus, s_minus, state_f)
+            continue
+        first = 1 if s_plus[d] >= s_minus[d] else -1
+        side = first if choice[d] == 0 else -first
+        choice[d] += 1
+        nodes += 1
+        _bb_assign(w, d, side, x, s_plus, s_minus, state_f)
+        bound = state_f[0] + rest[d + 1]
+        for v in range(d + 1, n):
+            bound += max(s_plus[v], s_minus[v])
+        if bound > state_f[1] + eps:
+            d += 1
+            if d < n:
+                choice[d] = 0
+        else:
+            _bb_unassign(w, d, x, s_plus, s_minus, state_f)
+    state_i[0] = 0
+    state_i[1] += nodes
+    return True
