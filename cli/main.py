@@ -113,7 +113,10 @@ def _add_score_parser(sub) -> None:
                    help="TOML config used to build the graph (default: the built-in config)")
     p.add_argument("--seeds", metavar="FILE", default=None,
                    help="seed marker image, as for 'segcut split' (single image only)")
-    _add_seed_option(p)
+    p.add_argument("--seed", type=_non_negative_int, default=None,
+                   help="run seed, as given to 'segcut split' (default: the config's seed); "
+                        "each image's seed is derived from it and the image file's content, "
+                        "as 'segcut split' does")
     _add_json_option(p)
     p.add_argument("--csv", metavar="FILE", default=None, dest="csv_path",
                    help="also write one row per (image, mask) to this CSV file")

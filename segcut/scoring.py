@@ -646,6 +646,221 @@ def summarize_comparison(results: Mapping[str, Mapping[str, dict]], *, rank_by: 
                              n_resamples=int(n_resamples))
 
 
+# --- the cut score of given masks -------------------------------------------------------
+
+@dataclass(frozen=True)
+class MaskScore:
+    """The cut score of one mask on an image's graph.
+
+    Attributes
+    ----------
+    name : str
+    value : float
+        Cut value of the mask's projection onto the graph (the same quantity as
+        :attr:`segcut.pipeline.SplitResult.value`).
+    gap : float or None
+        ``(upper_bound - value) / |upper_bound|``: how far below the best possible
+        split under this graph the mask is, at most. None without a bound.
+    agreement : float
+        Share of pixels where the mask equals its projection (1.0 when the mask
+        follows superpixel borders; lower for masks finer than the superpixels).
+    foreground_fraction : float
+        Share of the mask's pixels that are foreground.
+    rank : int
+        1 for the mask with the largest cut value.
+    """
+
+    name: str
+    value: float
+    gap: float | None
+    agreement: float
+    foreground_fraction: float
+    rank: int
+
+    def to_dict(self) -> dict:
+        """Plain JSON-ready dict."""
+        return _jsonable(self.__dict__)
+
+
+@dataclass(frozen=True, eq=False)
+class ScoreResult:
+    """Cut scores of several masks on one image's graph, with the graph's certified bound.
+
+    Attributes
+    ----------
+    masks : tuple of MaskScore
+        In the order the masks were given (see :attr:`ranking` for best first).
+    upper_bound : float or None
+        Certified upper bound on the cut value of *any* split under this graph
+        (None when the bound method gives no certificate).
+    solver_value : float
+        Best cut found by the bound solve itself (for the SDP: hyperplane rounding
+        and 1-flip polish), a reference point beside the given masks.
+    method : str
+        Max-cut method that produced the bound.
+    n_superpixels : int
+    n_vertices : int
+        Graph vertices (superpixels not merged into seeds, plus the terminal).
+    orientation : str
+        How the graph decides the foreground side (see
+        :data:`segcut.pipeline.ORIENTATIONS`).
+    seed : int or None
+        Seed the graph was built with (``split`` must use the same one).
+    image_graph : ImageGraph
+        The graph the masks were scored on.
+    """
+
+    masks: tuple
+    upper_bound: float | None
+    solver_value: float
+    method: str
+    n_superpixels: int
+    n_vertices: int
+    orientation: str
+    seed: int | None
+    image_graph: object = field(default=None, repr=False)
+
+    @property
+    def ranking(self) -> tuple:
+        """The mask scores, largest cut value first."""
+        return tuple(sorted(self.masks, key=lambda m: m.rank))
+
+    def to_dict(self) -> dict:
+        """Plain JSON-ready dict (no arrays)."""
+        return {
+            "upper_bound": _jsonable(self.upper_bound),
+            "solver_value": _jsonable(self.solver_value),
+            "method": self.method,
+            "n_superpixels": self.n_superpixels,
+            "n_vertices": self.n_vertices,
+            "orientation": self.orientation,
+            "seed": self.seed,
+            "masks": [m.to_dict() for m in self.masks],
+        }
+
+    def __repr__(self) -> str:
+        bound = "None" if self.upper_bound is None else f"{self.upper_bound:.6g}"
+        best = self.ranking[0].name if self.masks else None
+        return (f"ScoreResult(n_masks={len(self.masks)}, upper_bound={bound}, "
+                f"best={best!r}, n_superpixels={self.n_superpixels})")
+
+
+def score(image, masks, *, config=None, seeds=None, channel_axis: int | None = -1,
+          rng=None, method: str = "sdp") -> ScoreResult:
+    """Cut score of given masks on an image's signed graph, beside its certified bound.
+
+    Builds the graph :func:`segcut.split` would solve for ``image`` (same config,
+    seeds and seed), projects each mask onto it (every superpixel takes the side of
+    the majority of its pixels) and reports the cut value of each projection, the
+    share of pixels that agree with it, and the gap to a certified upper bound
+    computed once for the image and shared by all masks.
+
+    Parameters
+    ----------
+    image : (M, N[, C]) ndarray
+        As for :func:`segcut.pipeline.split`.
+    masks : sequence of array_like, or mapping of name to array_like
+        Masks of the image's spatial shape; zero is background, anything else
+        foreground. A sequence is named ``mask0``, ``mask1``...
+    config : SplitConfig, optional
+        The config that builds the graph; ``SplitConfig()`` by default.
+    seeds : int ndarray, optional
+        Hard seeds as for ``split`` (they are part of the graph: seeded superpixels
+        keep their seed whatever the mask says, which lowers ``agreement``).
+    channel_axis : int or None, default -1
+    rng : None, int or numpy.random.Generator
+        Seed of the graph building (its colour-model rounds) and of the bound
+        solve; by default ``config.seed``, as in ``split``. Score a mask written by
+        ``split`` with the seed it ran with.
+    method : str, default "sdp"
+        Max-cut method that provides the upper bound; it must give a certified
+        bound (``"sdp"``, or ``"exact"`` for tiny graphs).
+
+    Returns
+    -------
+    ScoreResult
+
+    Raises
+    ------
+    ValueError
+        For no masks, masks of different shapes, a mask whose shape differs from
+        the image's spatial shape (both shapes named), or a malformed image.
+
+    Notes
+    -----
+    The cut value is ``sum_{i<j} w_ij (1 - x_i x_j) / 2`` over the graph's vertices
+    (superpixels, plus the terminal when priors, colour models or seeds add one; it
+    takes the foreground side). Without a terminal, flipping every side gives the
+    same value, so the foreground rule does not matter. For the mask that ``split``
+    returned, the projection is exact and the value equals ``SplitResult.value``.
+    No mask can score above ``upper_bound``.
+
+    Examples
+    --------
+    >>> from segcut.config import SplitConfig
+    >>> image = np.zeros((24, 24)); image[6:18, 6:18] = 1.0
+    >>> square = image > 0.5
+    >>> half = np.zeros((24, 24), dtype=bool); half[:, :12] = True
+    >>> cfg = SplitConfig(prior=("border",), colour_model=False)
+    >>> r = score(image, {"square": square, "left half": half}, config=cfg)
+    >>> [(m.name, m.rank, m.agreement) for m in r.ranking]
+    [('square', 1, 1.0), ('left half', 2, 1.0)]
+    >>> r.masks[0].value <= r.upper_bound
+    True
+    """
+    from .config import SplitConfig
+    from .graph import cut_value
+    from .maxcut import get_method, solve_maxcut
+    from .maxcut import sdp as _sdp  # noqa: F401  (registers "sdp", the default bound)
+    from .maxcut._common import relative_gap
+    from .pipeline import build_image_graph, mask_to_sides
+
+    get_method(method)  # an unknown method is refused before any work
+
+    if isinstance(masks, Mapping):
+        names = [str(k) for k in masks]
+        arrays = list(masks.values())
+    elif isinstance(masks, np.ndarray):
+        raise TypeError("masks must be a sequence or a mapping of masks; wrap one mask in a list")
+    else:
+        arrays = list(masks)
+        names = [f"mask{k}" for k in range(len(arrays))]
+    if not arrays:
+        raise ValueError("no masks to score")
+    binary = [as_binary_mask(a, name=f"mask {n!r}") for n, a in zip(names, arrays)]
+    for n, b in zip(names, binary):
+        if b.shape != binary[0].shape:
+            raise ValueError(f"mask {n!r} shape {b.shape} differs from mask {names[0]!r} "
+                             f"shape {binary[0].shape}")
+    config = SplitConfig() if config is None else config
+    if not isinstance(config, SplitConfig):
+        raise TypeError(f"config must be a SplitConfig; got {type(config).__name__}")
+    seed = config.seed if rng is None else rng
+    ig = build_image_graph(image, config, seeds=seeds, channel_axis=channel_axis, rng=seed)
+    if binary[0].shape != ig.labels.shape:
+        raise ValueError(f"mask shape {binary[0].shape} does not match the image's spatial "
+                         f"shape {ig.labels.shape}")
+    bound_solve = solve_maxcut(ig.graph, method=method, rng=seed)
+    bound = bound_solve.upper_bound
+    values, agreements = [], []
+    for b in binary:
+        sides, agreement = mask_to_sides(ig, b)
+        values.append(cut_value(ig.graph, sides))
+        agreements.append(agreement)
+    order = sorted(range(len(values)), key=lambda k: (-values[k], k))
+    rank = {k: r + 1 for r, k in enumerate(order)}
+    scores = tuple(
+        MaskScore(name=n, value=float(v), gap=relative_gap(v, bound), agreement=float(a),
+                  foreground_fraction=float(b.mean()), rank=rank[k])
+        for k, (n, v, a, b) in enumerate(zip(names, values, agreements, binary))
+    )
+    return ScoreResult(masks=scores, upper_bound=bound, solver_value=float(bound_solve.value),
+                       method=bound_solve.method, n_superpixels=ig.n_regions,
+                       n_vertices=ig.graph.n_vertices, orientation=ig.orientation,
+                       seed=int(seed) if isinstance(seed, (int, np.integer)) else None,
+                       image_graph=ig)
+
+
 # --- helpers ----------------------------------------------------------------------------
 
 def _base_seed(rng) -> int:

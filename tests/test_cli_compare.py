@@ -71,7 +71,7 @@ def test_unmatched_files_are_listed_not_fatal(folders, capsys):
     code = main(["compare", str(root / "good"), str(root / "poor"), "-r", str(root / "refs")])
     assert code == 0
     err = capsys.readouterr().err
-    assert f"{root / 'good' / 'extra.png'}: no reference with the stem 'extra'" in err
+    assert f"{root / 'good'}: 1 prediction without a reference of the same stem: extra" in err
     assert f"{root / 'poor'}: no prediction for 1 of 3 references: c" in err
 
 

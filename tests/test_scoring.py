@@ -346,3 +346,129 @@ def test_summary_counts_infinite_distances_apart():
 def test_summary_refuses_unknown_measure():
     with pytest.raises(ValueError, match="unknown measure"):
         summarize_comparison({"a": {}}, metrics=("iou", "accuracy"))
+
+
+# --- the cut score of masks on an image's graph -----------------------------------------
+
+def _scene(seed: int = 0, shape=(40, 48)) -> np.ndarray:
+    """A noisy colour image: a reddish disc on a blue-green ground."""
+    rng = np.random.default_rng(seed)
+    rr, cc = np.ogrid[:shape[0], :shape[1]]
+    disc = (rr - shape[0] / 2) ** 2 + (cc - shape[1] / 2.2) ** 2 <= (shape[0] / 3.2) ** 2
+    img = np.where(disc[..., None], [0.8, 0.3, 0.2], [0.2, 0.5, 0.6])
+    return np.clip(img + rng.normal(0, 0.06, img.shape), 0, 1)
+
+
+_SUPERPIXELS = dict(n_superpixels=80, pixel_grid_max_pixels=0)
+
+
+@pytest.mark.parametrize("settings_", [
+    dict(prior=("border",)),
+    dict(prior=()),                      # no prior: colour models from a 2-means start
+    dict(prior=(), colour_model=False),  # no terminal at all
+])
+def test_score_of_split_mask_equals_its_value(settings_):
+    from segcut.config import SplitConfig
+    from segcut.pipeline import split
+    from segcut.scoring import score
+
+    cfg = SplitConfig(**_SUPERPIXELS, **settings_)
+    image = _scene(1)
+    result = split(image, cfg, rng=7)
+    r = score(image, [result.mask], config=cfg, rng=7)
+    assert r.masks[0].value == result.value  # exactly: same graph, exact projection
+    assert r.masks[0].agreement == 1.0
+    assert r.upper_bound is not None and r.masks[0].value <= r.upper_bound + 1e-9
+    assert r.seed == 7
+
+
+def test_score_with_hard_seeds_matches_split():
+    from segcut.config import SplitConfig
+    from segcut.pipeline import split
+    from segcut.scoring import score
+
+    image = _scene(2)
+    seeds = np.zeros(image.shape[:2], dtype=np.uint8)
+    seeds[20, 22] = 1  # foreground inside the disc
+    seeds[0, :] = 2    # background along the top
+    cfg = SplitConfig(**_SUPERPIXELS)
+    result = split(image, cfg, seeds=seeds, rng=3)
+    r = score(image, {"split": result.mask, "nothing": np.zeros(image.shape[:2])},
+              config=cfg, seeds=seeds, rng=3)
+    assert r.masks[0].value == result.value
+    # the empty mask cannot keep the foreground seed: its projection disagrees there
+    assert r.masks[1].agreement < 1.0
+
+
+def test_cut_value_of_projection_against_networkx():
+    # Pixel-grid graph (every pixel a vertex): the projection is the mask itself, and
+    # the cut value must equal networkx's cut_size with the terminal on the
+    # foreground side.
+    import networkx as nx
+
+    from segcut.config import SplitConfig
+    from segcut.scoring import score
+
+    image = _scene(3, shape=(12, 14))
+    cfg = SplitConfig(prior=("border",), pixel_grid_max_pixels=4096)
+    masks = {"disc": image[..., 0] > 0.5, "stripe": np.arange(14)[None, :].repeat(12, 0) < 5}
+    r = score(image, masks, config=cfg, rng=0)
+    ig = r.image_graph
+    assert ig.terminal is not None and ig.n_regions == 12 * 14
+    i, j, w = ig.graph.edges()
+    g = nx.Graph()
+    g.add_nodes_from(range(ig.graph.n_vertices))
+    g.add_weighted_edges_from(zip(i.tolist(), j.tolist(), w.tolist()))
+    for m in r.masks:
+        mask = masks[m.name]
+        fg = set(ig.region_vertex[np.unique(ig.labels[mask])].tolist()) | {ig.terminal}
+        assert m.value == pytest.approx(nx.cut_size(g, fg, weight="weight"), rel=1e-12)
+        assert m.agreement == 1.0
+    assert r.ranking[0].value >= r.ranking[1].value
+
+
+def test_mask_finer_than_superpixels_shows_low_agreement():
+    from segcut.config import SplitConfig
+    from segcut.scoring import score
+
+    image = _scene(4)
+    checker = (np.indices(image.shape[:2]).sum(axis=0) % 2).astype(bool)
+    r = score(image, [checker], config=SplitConfig(**_SUPERPIXELS), rng=0)
+    # each superpixel holds about half of each colour: about half the pixels disagree
+    assert 0.4 < r.masks[0].agreement < 0.6
+
+
+def test_without_terminal_a_mask_and_its_complement_score_the_same():
+    # cut(x) = cut(-x): the value of a split does not depend on which side is called foreground
+    from segcut.config import SplitConfig
+    from segcut.scoring import score
+
+    image = _scene(5)
+    mask = image[..., 0] > 0.5
+    r = score(image, {"m": mask, "not m": ~mask},
+              config=SplitConfig(**_SUPERPIXELS, colour_model=False), rng=0)
+    assert r.image_graph.terminal is None
+    assert r.masks[0].value == pytest.approx(r.masks[1].value, rel=1e-12)
+
+
+def test_score_refuses_mismatched_masks():
+    from segcut.scoring import score
+
+    image = _scene(6)
+    with pytest.raises(ValueError, match=r"mask 'b' shape \(3, 3\) differs from mask 'a' shape"):
+        score(image, {"a": np.zeros(image.shape[:2]), "b": np.zeros((3, 3))})
+
+
+def test_score_refuses_wrong_size():
+    from segcut.scoring import score
+
+    image = _scene(6)
+    with pytest.raises(ValueError, match=r"mask shape \(3, 3\) does not match the image's spatial shape \(40, 48\)"):
+        score(image, [np.zeros((3, 3))])
+
+
+def test_score_refuses_no_masks():
+    from segcut.scoring import score
+
+    with pytest.raises(ValueError, match="no masks to score"):
+        score(_scene(6), [])

@@ -168,11 +168,16 @@ def compare(predictions, *, reference, tolerance: float = 2.0, threshold: float 
         if not ref_path.is_dir() and not paths[0].is_dir():
             matched[ref_path.stem] = (paths[0], ref_path)  # a file against the one reference
         else:
+            orphans = []
             for stem, f in found.files.items():
                 if stem in refs.files:
                     matched[stem] = (f, refs.files[stem])
                 elif ref_path.is_dir():
-                    unmatched.append(f"{f}: no reference with the stem {stem!r}")
+                    orphans.append(stem)
+            if orphans:
+                unmatched.append(f"{set_name}: {len(orphans)} prediction"
+                                 f"{'s' if len(orphans) != 1 else ''} without a reference of "
+                                 f"the same stem: {_stems(orphans)}")
             if not ref_path.is_dir() and not matched:
                 unmatched.append(f"{ref_path}: no prediction with the stem {ref_path.stem!r} "
                                  f"in {set_name}")
