@@ -264,9 +264,11 @@ def _fmt(value: float, digits: int = 3) -> str:
 def _cell(summary, metric: str) -> str:
     digits = 2 if metric in ("hausdorff", "assd") else 3
     s = summary.metrics[metric]
+    if s.n == 0:
+        return f"inf on all {s.n_infinite}" if s.n_infinite else "-"
     text = f"{_fmt(s.mean, digits)} [{_fmt(s.ci_low, digits)}, {_fmt(s.ci_high, digits)}]"
     if s.n_infinite:
-        text += f" +{s.n_infinite} inf"
+        text += f", inf on {s.n_infinite}"
     return text
 
 
@@ -294,6 +296,9 @@ def summary_table(summary, *, tolerance: float) -> str:
         f"boundary tolerance {tolerance:g} px; sets ranked by {summary.rank_by}, best first.",
         _table(header, body, right=set()),
     ]
+    if any(s.metrics[m].n_infinite for s in summary.sets for m in metrics):
+        lines.append("inf: one mask has a boundary and the other has none (an empty or full "
+                     "mask); such images are left out of that distance's mean.")
     p = summary.paired
     if p is not None:
         lines.append("")
