@@ -828,8 +828,19 @@ def _check_run_folder(out_dir: Path, config, config_hash: str, records: dict) ->
         _atomic_write(run_toml, text.encode("utf-8"))
 
 
-def _output_name(item: InputItem, suffix: str) -> str:
-    return item.stem + suffix
+def _check_config_names(config) -> None:
+    """Unknown affinity model, prior or method: ValueError before any work is done."""
+    from .affinity import get_affinity_model
+    from .maxcut import available_methods
+    from .priors import get_prior
+
+    get_affinity_model(config.affinity)
+    for name in config.prior:
+        get_prior(name)
+    methods = available_methods()
+    if config.method != "auto" and config.method not in methods:
+        raise ValueError(f"unknown max-cut method {config.method!r}; choose auto or one of "
+                         f"{', '.join(sorted(methods))}")
 
 
 def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
@@ -873,6 +884,9 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
 
     Raises
     ------
+    ValueError
+        For a bad argument, or an affinity model, prior or method name that is not
+        registered (checked before any work).
     ConfigError
         When ``out_dir`` holds results of another configuration.
     InputError
@@ -889,6 +903,7 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
         raise ValueError("give scheduler or dask_local, not both")
     if dask_local is not None and int(dask_local) < 1:
         raise ValueError(f"dask_local must be >= 1, got {dask_local}")
+    _check_config_names(config)
     started = time.perf_counter()
     out_dir = Path(out_dir)
     if out_dir.exists() and not out_dir.is_dir():

@@ -133,15 +133,18 @@ def histogram_svg(values: Sequence[float], *, lo: float = 0.0, hi: float | None 
     >>> '<title>0.25 to 0.5: 0</title>' in svg
     True
     """
-    clean = [float(v) for v in values if v is not None and math.isfinite(float(v))]
+    import numpy as np
+
+    clean = np.array([float(v) for v in values if v is not None and math.isfinite(float(v))])
     if hi is None:
-        hi = _nice_ceiling(max(clean, default=0.0))
+        hi = _nice_ceiling(float(clean.max()) if clean.size else 0.0)
     if not hi > lo:
         hi = lo + 1.0
-    counts = [0] * n_bins
-    for v in clean:
-        k = int((v - lo) / (hi - lo) * n_bins)
-        counts[min(max(k, 0), n_bins - 1)] += 1
+    # bins [e_k, e_k+1), the last one closed; values outside go to the end bars
+    edges = np.linspace(lo, hi, n_bins + 1)
+    index = np.clip(np.searchsorted(edges, clean, side="right") - 1, 0, n_bins - 1)
+    index[clean == hi] = n_bins - 1
+    counts = np.bincount(index, minlength=n_bins).tolist()
     top = max(counts, default=0) or 1
     left, right, upper, lower = 34, 8, 24, 30
     plot_w, plot_h = width - left - right, height - upper - lower
@@ -150,7 +153,7 @@ def histogram_svg(values: Sequence[float], *, lo: float = 0.0, hi: float | None 
              f'height="{height}" viewBox="0 0 {width} {height}" role="img" '
              f'aria-label="{html.escape(title)}">',
              f'<text x="{left}" y="15" class="cap">{html.escape(title)} '
-             f'({len(clean)} images)</text>']
+             f'({clean.size} images)</text>']
     for k, count in enumerate(counts):
         h = plot_h * count / top
         x = left + k * bar_w

@@ -24,10 +24,11 @@ def build_config(*, config_path=None, prior=None, box=None, superpixels=None, af
     Raises
     ------
     segcut.errors.ConfigError
-        The file cannot be read, or an option value is not valid.
+        The config file cannot be read or is not valid.
+    ValueError
+        An option value is not valid (the message says which).
     """
     from segcut.config import SplitConfig, load_config
-    from segcut.errors import ConfigError
 
     config = load_config(config_path) if config_path is not None else SplitConfig()
     changes = {}
@@ -49,7 +50,7 @@ def build_config(*, config_path=None, prior=None, box=None, superpixels=None, af
     try:
         return config.replace(**changes)
     except (TypeError, ValueError) as err:
-        raise ConfigError(" ".join(str(err).split())) from None
+        raise ValueError(" ".join(str(err).split())) from None
 
 
 def _clock(seconds) -> str:
@@ -109,13 +110,21 @@ def split(paths, *, out, include=(), exclude=(), config_path=None, prior=None, b
 
     stdout = sys.stdout if stdout is None else stdout
     stderr = sys.stderr if stderr is None else stderr
-    config = build_config(config_path=config_path, prior=prior, box=box, superpixels=superpixels,
-                          affinity=affinity, method=method, time_limit=time_limit, seed=seed)
+    try:
+        config = build_config(config_path=config_path, prior=prior, box=box,
+                              superpixels=superpixels, affinity=affinity, method=method,
+                              time_limit=time_limit, seed=seed)
+    except ValueError as err:
+        stderr.write(f"segcut: split: {err}\n")
+        return EXIT_USAGE
     printer = None if quiet or as_json else ProgressPrinter(stderr)
     try:
         summary = run_batch(paths, out, config, include=include, exclude=exclude, seeds=seeds,
                             jobs=jobs, scheduler=scheduler, dask_local=dask_local, force=force,
                             report=report, progress=printer)
+    except ValueError as err:  # refused before any work: a bad option value
+        stderr.write(f"segcut: split: {' '.join(str(err).split())}\n")
+        return EXIT_USAGE
     finally:
         if printer is not None:
             printer.close()
