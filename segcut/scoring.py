@@ -18,9 +18,12 @@ Everything here works on arrays in memory; reading files is the job of
 Mask convention
 ---------------
 In memory a mask is any array whose zero entries are background and whose other
-entries are foreground (booleans work as they are). Reading reference files that
-are not strictly binary (for example JPEG-compressed) is handled by
-:func:`segcut.io.read_mask`, which thresholds them at half their maximum.
+entries are foreground (booleans work as they are). Files are read by
+:func:`segcut.io.read_mask`: a mask with at most two values, one of them 0 (segcut's
+own 0/255 masks, 0/1 label images), is foreground wherever it is not 0; a mask that
+is not strictly binary (a JPEG-compressed reference, a soft mask) is cut at half its
+type's range (127.5 for 8-bit files); its ``threshold=`` overrides both rules
+(``segcut compare --threshold`` passes it for the reference masks).
 """
 
 from __future__ import annotations

@@ -35,7 +35,8 @@ def split_run(tmp_path_factory):
     config.write_text(SplitConfig(n_superpixels=60, pixel_grid_max_pixels=0,
                                   prior=("border",), seed=4).to_toml())
     out = root / "out"
-    assert main(["split", str(images), "-o", str(out), "--config", str(config)]) == 0
+    assert main(["split", str(images), "-o", str(out), "--config", str(config), "--jobs", "1",
+                 "--quiet", "--no-report"]) == 0
     records = {}
     for line in (out / "records.jsonl").read_text().splitlines():
         rec = json.loads(line)
