@@ -92,7 +92,7 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
     time_limit : float, optional
         Stop after about this many seconds (checked every ~0.05 s).
     tenure : int, optional
-        Base tabu tenure; default ``max(1, n // 40)``. Each flip adds a random 0 to
+        Base tabu tenure; default ``n // 40`` (at least ``min(3, n // 4)`` and 1). Each flip adds a random 0 to
         ``tenure // 2`` moves.
     stall_moves : int, optional
         Moves without a new best before a perturbation; default ``2 n`` (at least 1000).
@@ -128,12 +128,13 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
     if n < 2 or graph.n_edges == 0:
         info["reason"] = "target"
         return best, info
-    base = max(1, n // 40) if tenure is None else int(tenure)
+    base = max(n // 40, min(3, n // 4), 1) if tenure is None else int(tenure)
     base = min(base, n - 1)
     spread = base // 2
     stall = max(1000, 2 * n) if stall_moves is None else int(stall_moves)
     min_strength = max(1, round(0.01 * n))
-    max_strength = max(min_strength, round(0.1 * n))
+    # small graphs need relatively larger jumps to leave a local optimum's basin
+    max_strength = max(min_strength, round(0.1 * n), min(5, n // 2))
     size = 1 << max(1, (n - 1).bit_length())
     gains = np.empty(n, dtype=np.float64)
     tie = np.empty(n, dtype=np.uint64)
