@@ -162,3 +162,24 @@ def test_rank_by_distance(folders, capsys):
     summary = json.loads(capsys.readouterr().out)["summary"]
     assert summary["rank_by"] == "assd"
     assert summary["sets"][0]["name"] == str(root / "good")
+
+
+def test_jpeg_reference_is_read_as_its_mask(tmp_path, capsys):
+    # JPEG compression leaves values near 0 and 255 (not strictly binary); the
+    # reference is cut at half the 8-bit range, so it reads back as the drawn mask
+    # except at a few edge pixels.
+    from PIL import Image
+
+    truth = np.zeros((48, 64), dtype=bool)
+    truth[10:38, 14:50] = True
+    Image.fromarray(np.where(truth, 255, 0).astype(np.uint8)).save(tmp_path / "ref.jpg", quality=70)
+    pred_dir = tmp_path / "pred"
+    write_mask(truth, pred_dir / "ref.png")  # the exact mask, matched by stem
+    values = np.asarray(Image.open(tmp_path / "ref.jpg"))
+    assert len(np.unique(values)) > 2  # the file really is not binary
+    ref_dir = tmp_path / "refs"
+    ref_dir.mkdir()
+    (tmp_path / "ref.jpg").rename(ref_dir / "ref.jpg")
+    assert main(["compare", str(pred_dir), "-r", str(ref_dir), "--json"]) == 0
+    (row,) = json.loads(capsys.readouterr().out)["images"]
+    assert row["iou"] > 0.98 and row["reference"] == str(ref_dir / "ref.jpg")
