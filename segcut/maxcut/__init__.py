@@ -21,6 +21,7 @@ from ._common import (
 from . import local  # noqa: F401  (registers "local")
 from . import tabu  # noqa: F401,E402  (registers "tabu", the default)
 from . import exact  # noqa: F401,E402  (registers "exact")
+from . import sdp  # noqa: F401,E402  (registers "sdp")
 
 __all__ = [
     "CutResult",
