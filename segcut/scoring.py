@@ -568,7 +568,9 @@ def summarize_comparison(results: Mapping[str, Mapping[str, dict]], *, rank_by: 
         that image (only the keys in ``metrics`` are read).
     rank_by : str, default "iou"
         Measure whose mean ranks the sets (larger is better, except for
-        ``hausdorff`` and ``assd``). Ties are broken by set name.
+        ``hausdorff`` and ``assd``). For a distance, a set with more infinite
+        values (see :func:`compare_masks`) ranks below one with fewer, whatever the
+        means over the finite ones. Ties are broken by set name.
     metrics : sequence of str
         Measures to aggregate; ``rank_by`` must be one of them.
     n_resamples, confidence, rng
@@ -629,8 +631,9 @@ def summarize_comparison(results: Mapping[str, Mapping[str, dict]], *, rank_by: 
     sign = 1.0 if HIGHER_IS_BETTER[rank_by] else -1.0
 
     def order(item):
-        mean = item[2][rank_by].mean
-        return (math.isnan(mean), -sign * (0.0 if math.isnan(mean) else mean), item[0])
+        m = item[2][rank_by]
+        return (math.isnan(m.mean), m.n_infinite, -sign * (0.0 if math.isnan(m.mean) else m.mean),
+                item[0])
 
     summaries.sort(key=order)
     sets = tuple(SetSummary(name=name, rank=r + 1, n_images=n, metrics=agg)

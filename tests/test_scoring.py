@@ -343,6 +343,19 @@ def test_summary_counts_infinite_distances_apart():
     assert (iou.mean, iou.n) == (0.5, 2)
 
 
+def test_summary_ranks_sets_with_infinite_distances_last():
+    ref = _bars(2, 5)
+    far = _bars(5, 8)  # finite but large distances
+    results = {
+        "finite": {"x": compare_masks(far, ref), "y": compare_masks(far, ref)},
+        # one perfect image and one empty prediction: finite mean 0, but one inf
+        "some inf": {"x": compare_masks(ref, ref), "y": compare_masks(np.zeros_like(ref), ref)},
+    }
+    s = summarize_comparison(results, rank_by="hausdorff")
+    assert [x.name for x in s.sets] == ["finite", "some inf"]
+    assert s.paired.n_images == 1  # the pair with an infinite value is left out
+
+
 def test_summary_refuses_unknown_measure():
     with pytest.raises(ValueError, match="unknown measure"):
         summarize_comparison({"a": {}}, metrics=("iou", "accuracy"))
