@@ -183,3 +183,18 @@ def test_jpeg_reference_is_read_as_its_mask(tmp_path, capsys):
     assert main(["compare", str(pred_dir), "-r", str(ref_dir), "--json"]) == 0
     (row,) = json.loads(capsys.readouterr().out)["images"]
     assert row["iou"] > 0.98 and row["reference"] == str(ref_dir / "ref.jpg")
+
+
+def test_same_inputs_give_the_same_bytes(folders, capsys):
+    root, _ = folders
+    args = ["compare", str(root / "good"), str(root / "poor"), "-r", str(root / "refs"), "--json"]
+    assert main(args) == 0
+    first = capsys.readouterr().out
+    assert main(args) == 0
+    assert capsys.readouterr().out == first
+
+
+def test_negative_tolerance_is_a_usage_error(folders, capsys):
+    root, _ = folders
+    assert main(["compare", str(root / "good"), "-r", str(root / "refs"), "--tolerance", "-1"]) == 2
+    assert "expected a number >= 0" in capsys.readouterr().err
