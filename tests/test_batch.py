@@ -58,13 +58,15 @@ def write_scenes(folder: Path, names) -> dict:
     return truths
 
 
-def direct_mask(path: Path, seed: int) -> np.ndarray:
+def direct_mask(path: Path, seed: int, seeds_path: Path | None = None) -> np.ndarray:
     """The mask of one file from segcut.split itself (the engine, outside any batch)."""
     from segcut import io
     from segcut.pipeline import split
 
     data = io.read_image(path)
-    return split(data.array, SplitConfig(), channel_axis=data.channel_axis, rng=seed).mask
+    seeds = None if seeds_path is None else io.read_seeds(seeds_path)
+    return split(data.array, SplitConfig(), seeds=seeds, channel_axis=data.channel_axis,
+                 rng=seed).mask
 
 
 def read_mask(path: Path) -> np.ndarray:
@@ -253,6 +255,38 @@ def test_torn_record_and_stale_temporary_are_cleaned(scenes, serial_run, tmp_pat
     assert (out / "records.jsonl").read_bytes() == good
 
 
+def test_seed_folder_is_matched_by_relative_path_then_stem(scenes, serial_run, tmp_path):
+    folder, _ = scenes
+    marks = tmp_path / "marks"
+    (marks / "sub").mkdir(parents=True)
+    canvas = np.zeros((SIZE, SIZE), np.uint8)
+    canvas[:4, :] = 128  # the top rows are background (mid-gray)
+    canvas[44:52, 44:52] = 255  # the centre is foreground (white)
+    Image.fromarray(canvas).save(marks / "a.png")  # matches a.png by stem
+    Image.fromarray(canvas).save(marks / "sub" / "c.png")  # matches sub/c.png by path
+    Image.fromarray(canvas).save(marks / "d.png")  # matches sub/deeper/d.png by stem
+    out = tmp_path / "out"
+    summary = run_batch([folder], out, SplitConfig(), seeds=marks, jobs=1, report=False)
+    assert summary.done == 4
+    records = load_records(out)
+    used = {"a.png": "a.png", "sub/c.png": "sub/c.png", "sub/deeper/d.png": "d.png"}
+    for name, mark in used.items():
+        assert records[name]["seeds_hash"] == hash_file(marks / mark)
+        mask = read_mask(out / records[name]["mask"])
+        assert np.array_equal(mask, direct_mask(folder / name, records[name]["seed"],
+                                                marks / mark))
+    unseeded = folder_bytes(serial_run[0] / "masks")
+    seeded = folder_bytes(out / "masks")
+    assert any(seeded[f"{n[:-4]}.png"] != unseeded[f"{n[:-4]}.png"] for n in used)  # seeds used
+    assert records["b.png"]["seeds_hash"] is None
+    assert any("no marker image" in w for w in records["b.png"]["warnings"])
+    # a changed marker redoes only the image that uses it
+    canvas[60:64, 60:64] = 255
+    Image.fromarray(canvas).save(marks / "d.png")
+    again = run_batch([folder], out, SplitConfig(), seeds=marks, jobs=1, report=False)
+    assert again.resumed == 3
+
+
 def test_bad_files_become_records_and_the_run_goes_on(tmp_path):
     from PIL import ImageCms  # noqa: F401 - CMYK JPEG support is part of Pillow
 
@@ -337,7 +371,7 @@ def test_sigkill_mid_run_then_resume_matches_uninterrupted(tmp_path):
         with Image.open(path) as im:
             im.load()
 
-    summary = run_batch([src], out, SplitConfig(), jobs=2, report=False)
+    summary = run_batch([src], out, SplitConfig(), jobs=1, report=False)
     assert summary.resumed == len(finished) and summary.done == len(names)
     assert len((out / "records.jsonl").read_text().splitlines()) == len(names)
     assert folder_bytes(out / "masks") == folder_bytes(reference / "masks")

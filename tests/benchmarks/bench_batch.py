@@ -1,0 +1,160 @@
+"""Folder-run throughput: one worker, a 2-process pool and a 2-worker Dask local cluster.
+
+Generates N 512x512 RGB scenes (default 200; shapes on shaded, textured grounds under
+noise), runs the same folder three times into fresh run folders, and prints a table of
+seconds, images/s and speed-ups, plus whether the three runs wrote identical mask and
+overlay bytes. Targets: 2 workers >= 1.7x one worker; the Dask local cluster within 1.3x
+of the process pool's time. Worker start-up (process spawn, numba cache load) is part
+of each run's time, as it is for a user.
+
+``--memory`` also measures the peak resident memory of ``segcut split`` on one
+6000x4000 photograph-like JPEG (a fresh process, one worker).
+
+Usage::
+
+    python tests/benchmarks/bench_batch.py [--n-images 200] [--memory] [--keep DIR]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+from PIL import Image
+
+PROJECT_ROOT = Path(__file__).resolve().parents[2]
+
+
+def make_scene(index: int, height: int = 512, width: int = 512) -> np.ndarray:
+    """One RGB uint8 scene: 1-3 ellipses on a shaded, striped ground, with noise."""
+    rng = np.random.default_rng(index)
+    yy, xx = np.mgrid[0:height, 0:width].astype(np.float32)
+    yy /= height
+    xx /= width
+    ground = rng.uniform(0.2, 0.8, 3).astype(np.float32)
+    shade = 0.25 * (xx * np.cos(index) + yy * np.sin(index))
+    stripes = 0.05 * np.sin(2 * np.pi * (6 + index % 5) * (xx + 0.3 * yy))
+    image = ground[None, None, :] + (shade + stripes)[..., None]
+    for _ in range(1 + index % 3):
+        cy, cx = rng.uniform(0.25, 0.75, 2)
+        ry, rx = rng.uniform(0.08, 0.22, 2)
+        inside = ((yy - cy) / ry) ** 2 + ((xx - cx) / rx) ** 2 < 1.0
+        colour = rng.uniform(0.0, 1.0, 3).astype(np.float32)
+        image[inside] = colour + 0.1 * shade[inside, None]
+    image += rng.normal(0.0, 0.04, image.shape).astype(np.float32)
+    return (np.clip(image, 0.0, 1.0) * 255).astype(np.uint8)
+
+
+def folder_bytes(folder: Path) -> dict:
+    return {str(p.relative_to(folder)): p.read_bytes() for p in sorted(folder.rglob("*.png"))}
+
+
+def run_once(label: str, src: Path, out: Path, **executor) -> tuple:
+    from segcut.batch import run_batch
+    from segcut.config import SplitConfig
+
+    t0 = time.perf_counter()
+    summary = run_batch([src], out, SplitConfig(), report=False, **executor)
+    seconds = time.perf_counter() - t0
+    if summary.failed or summary.done != summary.total:
+        raise SystemExit(f"{label}: {summary.failed} images failed")
+    return seconds, summary.total
+
+
+def memory_check(workdir: Path) -> None:
+    """Peak RSS of `segcut split` on one 6000x4000 JPEG, in a fresh process."""
+    path = workdir / "big" / "photo_6000x4000.jpg"
+    path.parent.mkdir()
+    tile = make_scene(7, 1000, 1500)  # a 1000x1500 scene, upscaled smoothly
+    big = Image.fromarray(tile).resize((6000, 4000), Image.Resampling.BICUBIC)
+    noise = np.random.default_rng(1).normal(0, 6, (4000, 6000, 3))
+    big = Image.fromarray(np.clip(np.asarray(big) + noise, 0, 255).astype(np.uint8))
+    big.save(path, quality=92)
+    del big, noise
+    out = workdir / "big_out"
+    command = [sys.executable, "-c",
+               "import resource, sys; from segcut_cli.main import main; code = main(sys.argv[1:]); "
+               "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss, file=sys.stderr); "
+               "raise SystemExit(code)",
+               "split", str(path.parent), "-o", str(out), "--jobs", "1", "--quiet"]
+    t0 = time.perf_counter()
+    done = subprocess.run(command, cwd=PROJECT_ROOT, capture_output=True, text=True)
+    seconds = time.perf_counter() - t0
+    if done.returncode != 0:
+        raise SystemExit(f"memory run failed: {done.stderr.strip()}")
+    peak_kib = int(done.stderr.strip().splitlines()[-1])
+    from segcut.batch import load_records
+
+    record = next(iter(load_records(out).values()))
+    print("\nMemory: one 6000x4000 RGB JPEG (24 Mpixel; the decoded image alone is "
+          f"{4000 * 6000 * 3 / 2**20:.0f} MiB as uint8)")
+    print(f"  peak resident memory of the whole `segcut split --jobs 1` process: "
+          f"{peak_kib / 1024:.0f} MiB; {seconds:.1f} s; n_superpixels {record['n_superpixels']}; "
+          f"gap {record['gap']:.2e}")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--n-images", type=int, default=200)
+    parser.add_argument("--memory", action="store_true", help="also measure the 6000x4000 case")
+    parser.add_argument("--keep", default=None, help="work in this folder and keep it")
+    args = parser.parse_args()
+
+    import segcut
+    from segcut.batch import _warm_up
+
+    workdir = Path(args.keep) if args.keep else Path(tempfile.mkdtemp(prefix="bench_batch_"))
+    workdir.mkdir(parents=True, exist_ok=True)
+    try:
+        src = workdir / "images"
+        if not src.is_dir():
+            src.mkdir()
+            for k in range(args.n_images):
+                Image.fromarray(make_scene(k)).save(src / f"scene_{k:04d}.png")
+        n = len(list(src.glob("*.png")))
+        _warm_up()  # numba cache loaded in this process (the 1-worker run runs here)
+        print(f"segcut {segcut.__version__}; {n} generated 512x512 RGB images; "
+              f"{os.cpu_count()} cores; load average before: "
+              f"{', '.join(f'{x:.2f}' for x in os.getloadavg())}")
+        runs = [("1 worker (in process)", {"jobs": 1}),
+                ("process pool, 2 workers", {"jobs": 2}),
+                ("Dask LocalCluster, 2 workers", {"dask_local": 2})]
+        results = []
+        for k, (label, executor) in enumerate(runs):
+            out = workdir / f"out{k}"
+            shutil.rmtree(out, ignore_errors=True)
+            seconds, total = run_once(label, src, out, **executor)
+            results.append((label, seconds, total, out))
+        base = results[0][1]
+        pool = results[1][1]
+        print()
+        print(f"{'executor':<30} {'seconds':>8} {'images/s':>9} {'speed-up':>9} {'vs pool':>8}")
+        for label, seconds, total, _ in results:
+            print(f"{label:<30} {seconds:8.1f} {total / seconds:9.2f} {base / seconds:8.2f}x "
+                  f"{seconds / pool:7.2f}x")
+        reference = folder_bytes(results[0][3] / "masks"), folder_bytes(results[0][3] / "overlays")
+        same = all((folder_bytes(out / "masks"), folder_bytes(out / "overlays")) == reference
+                   for _, _, _, out in results[1:])
+        print(f"\nmasks and overlays byte-identical across the three runs: {'yes' if same else 'NO'}")
+        print(f"target 2 workers >= 1.7x one worker: {base / pool:.2f}x "
+              f"({'met' if base / pool >= 1.7 else 'NOT met'})")
+        dask = results[2][1]
+        print(f"target Dask within 1.3x of the pool's time: {dask / pool:.2f}x "
+              f"({'met' if dask / pool <= 1.3 else 'NOT met'})")
+        print(f"load average after: {', '.join(f'{x:.2f}' for x in os.getloadavg())}")
+        if args.memory:
+            memory_check(workdir)
+    finally:
+        if not args.keep:
+            shutil.rmtree(workdir, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()
