@@ -167,11 +167,12 @@ def test_sparse_certificate_agrees_with_dense():
     assert lam >= -1e-12 * norm
 
 
-def test_certify_dual_shifts_an_infeasible_guess():
+@pytest.mark.parametrize("dense_limit", [0, 100])
+def test_certify_dual_shifts_an_infeasible_guess(dense_limit):
     # Common knowledge: for the unit triangle the SDP value is 9/4 (vectors at 120 degrees);
     # y = 0 is far from feasible and must be shifted up to at least that.
     triangle = complete(3)
-    z, bound, certified = certify_dual(triangle, np.zeros(3))
+    z, bound, certified = certify_dual(triangle, np.zeros(3), dense_limit=dense_limit)
     assert certified
     assert bound >= 9 / 4 - 1e-12
     lam, norm = min_eigenvalue_of_certificate(triangle, z)
@@ -336,6 +337,11 @@ def test_factor_of_wrong_shape_is_refused():
 def test_dual_of_wrong_length_is_refused():
     with pytest.raises(ValueError, match="dual must be a finite vector"):
         certify_dual(cycle(4), np.zeros(3))
+
+
+def test_negative_target_shift_is_refused():
+    with pytest.raises(ValueError, match="target_shift must be a finite number >= 0"):
+        certify_dual(cycle(4), np.zeros(4), target_shift=-1.0)
 
 
 def test_bad_hyperplane_count_is_refused():

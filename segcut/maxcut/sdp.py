@@ -217,7 +217,7 @@ def _ldl_positive_definite(mat: sp.csc_array) -> bool:
     """True when a symmetric LDL^T (no pivoting, symmetric ordering) has only positive pivots."""
     try:
         lu = spla.splu(mat, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
-                       options=dict(SymmetricMode=True))
+                       options=dict(SymmetricMode=True, Equil=False))
     except RuntimeError:  # exactly singular pivot
         return False
     if not np.array_equal(lu.perm_r, lu.perm_c):
@@ -236,17 +236,71 @@ def _is_positive_definite(graph: SignedGraph, diagonal: np.ndarray, dense: bool)
         except sla.LinAlgError:
             return False
         return True
-    return _ldl_positive_definite(_sparse_shifted(graph, diagonal))
+    with _blas_threads(1):
+        return _ldl_positive_definite(_sparse_shifted(graph, diagonal))
 
 
+@contextlib.contextmanager
 def _blas_threads(limit: int):
-    """Limit BLAS threads when threadpoolctl is installed (multi-threaded BLAS slows
-    small factorisations down by orders of magnitude when the cores are busy)."""
+    """Run the block with at most ``limit`` BLAS threads, when the BLAS allows it.
+
+    A multi-threaded BLAS spinning on busy cores made a 400 x 400 Cholesky
+    factorisation take 1.6 s instead of 1 ms (2 cores, load 5): the certificate
+    factorises with one thread. Uses threadpoolctl when installed, else the
+    thread setter of the OpenBLAS bundled with scipy; does nothing otherwise.
+    """
     try:
         from threadpoolctl import threadpool_limits  # noqa: PLC0415 - optional
     except ImportError:
-        return contextlib.nullcontext()
-    return threadpool_limits(limits=limit, user_api="blas")
+        threadpool_limits = None
+    if threadpool_limits is not None:
+        with threadpool_limits(limits=limit, user_api="blas"):
+            yield
+        return
+    setter = _openblas_thread_setter()
+    if setter is None:
+        yield
+        return
+    get, set_ = setter
+    before = int(get())
+    set_(int(limit))
+    try:
+        yield
+    finally:
+        set_(before)
+
+
+_OPENBLAS = []
+
+
+def _openblas_thread_setter():
+    """``(get_num_threads, set_num_threads)`` of scipy's bundled OpenBLAS, or None."""
+    if not _OPENBLAS:
+        found = None
+        try:
+            import ctypes
+            import glob
+            import os
+
+            import scipy
+
+            folder = os.path.join(os.path.dirname(os.path.dirname(scipy.__file__)), "scipy.libs")
+            for path in sorted(glob.glob(os.path.join(folder, "libscipy_openblas*"))):
+                lib = ctypes.CDLL(path)
+                for prefix in ("scipy_openblas", "openblas"):
+                    get = getattr(lib, f"{prefix}_get_num_threads", None)
+                    set_ = getattr(lib, f"{prefix}_set_num_threads", None)
+                    if get is not None and set_ is not None:
+                        get.restype = ctypes.c_int
+                        set_.argtypes = [ctypes.c_int]
+                        found = (get, set_)
+                        break
+                if found:
+                    break
+        except (OSError, ImportError, AttributeError):
+            found = None
+        _OPENBLAS.append(found)
+    return _OPENBLAS[0]
 
 
 def certify_dual(graph, dual, *, target_shift: float = 0.0,
@@ -665,7 +719,8 @@ def _solve_sdp(graph: SignedGraph, *, time_limit=None, rng=None, tol: float = 1e
                               polish=bool(polish))
     value = cut_value(graph, sides)
     bound = relaxation.upper_bound if relaxation.certified else None
-    integral = bool(np.all(graph.weights == np.round(graph.weights)))
+    integral = bool(np.all(graph.weights == np.round(graph.weights))
+                    and np.abs(graph.weights).sum() < 2.0 ** 52)
     if relaxation.status == "time_limit":
         status = "time_limit"
     elif bound is not None and (value >= bound or (integral and value > bound - 1.0)):
