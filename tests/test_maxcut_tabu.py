@@ -15,7 +15,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from checks import assert_valid_cut, brute_force_maxcut
-from segcut.graph import graph_from_edges
+from segcut.graph import cut_value, graph_from_edges
 from segcut.maxcut import solve_maxcut
 from segcut.maxcut.formats import read_graph
 from segcut.maxcut.tabu import tabu_search
@@ -46,6 +46,24 @@ def test_finds_the_brute_force_optimum_on_small_graphs(n):
         assert_valid_cut(g, result, local_optimum=True)
         assert result.value <= best + 1e-9
         assert result.value == pytest.approx(best, abs=1e-9)
+
+
+@pytest.mark.parametrize("n", [8, 12, 16])
+def test_buckets_find_the_brute_force_optimum_on_integer_weights(n):
+    # reference: exhaustive enumeration; whole-number weights use the gain buckets
+    for seed in range(3):
+        g = random_signed_graph(n, 5, seed=20 * n + seed, integer=True)
+        best, _ = brute_force_maxcut(g)
+        start = np.ones(n, dtype=np.int8)
+        sides, info = tabu_search(g, start, rng=seed, max_moves=5_000)
+        assert info["selection"] == "buckets"
+        assert cut_value(g, sides) == best
+
+
+def test_selection_must_suit_the_weights():
+    g = random_signed_graph(30, 4, seed=0, integer=False)
+    with pytest.raises(ValueError, match="selection='buckets' needs whole-number weights"):
+        tabu_search(g, np.ones(30, dtype=np.int8), max_moves=10, selection="buckets")
 
 
 @pytest.mark.parametrize("selection", ["scan", "trees"])
@@ -164,8 +182,6 @@ def test_scaling_weights_scales_the_value_with_the_same_seed(seed, n, scale):
 @settings(max_examples=25, deadline=None)
 @given(seed=st.integers(0, 2 ** 32 - 1), n=st.integers(2, 40))
 def test_flipping_all_sides_keeps_the_value(seed, n):
-    from segcut.graph import cut_value
-
     g = random_signed_graph(n, 3, seed, integer=False)
     result = solve_maxcut(g, rng=seed, max_moves=500, start_from="random")
     assert cut_value(g, -result.sides) == pytest.approx(result.value, abs=1e-12)

@@ -193,7 +193,8 @@ TS_PENDING = 3       # 1 when the current sides are a best not yet copied
 TS_STRENGTH = 4      # vertices flipped by the next perturbation
 TS_N_PERTURB = 5     # perturbations made
 TS_BEST_AT_PERTURB = 6  # 1 when the best improved since the last perturbation
-TS_N_ISTATE = 7
+TS_TOP = 7           # highest bucket that may be non-empty (bucket variant)
+TS_N_ISTATE = 8
 
 # Float state slots (the ``fstate`` array).
 TS_CURRENT = 0       # cut value of the current sides (kept incrementally)
@@ -243,6 +244,37 @@ def tabu_init(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, win
     fstate[TS_BEST] = value
     _tabu_reset(indptr, indices, weights, sides, gains, tie, tabu, win_free, win_tabu,
                 size, istate, rng_state)
+
+
+@njit(cache=True)
+def _perturb(indptr, indices, weights, sides, gains, best_sides, istate, fstate, rng_state,
+             min_strength, max_strength):
+    """Return to the best sides and flip ``istate[TS_STRENGTH]`` random vertices.
+
+    The strength falls back to ``min_strength`` when the best improved since the last
+    perturbation and otherwise grows by ``min_strength`` up to ``max_strength``.
+    Leaves the gains of the new sides in ``gains`` and their cut in ``fstate``.
+    """
+    n = sides.shape[0]
+    if istate[TS_PENDING] == 1:
+        for k in range(n):
+            best_sides[k] = sides[k]
+        istate[TS_PENDING] = 0
+    if istate[TS_BEST_AT_PERTURB] == 1 or istate[TS_N_PERTURB] == 0:
+        istate[TS_STRENGTH] = min_strength
+    else:
+        istate[TS_STRENGTH] = min(max_strength, istate[TS_STRENGTH] + min_strength)
+    istate[TS_BEST_AT_PERTURB] = 0
+    istate[TS_N_PERTURB] += 1
+    for k in range(n):
+        sides[k] = best_sides[k]
+    compute_gains(indptr, indices, weights, sides, gains)
+    current = fstate[TS_BEST]
+    for _ in range(istate[TS_STRENGTH]):
+        v = rand_below(rng_state, n)
+        current += gains[v]
+        flip_vertex(indptr, indices, weights, sides, gains, v)
+    fstate[TS_CURRENT] = current
 
 
 @njit(cache=True)
@@ -300,25 +332,8 @@ def tabu_search(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, w
 
         # perturbation: back to the best, then a random jump
         if t - istate[TS_LAST_BEST] > stall_moves:
-            if istate[TS_PENDING] == 1:
-                for k in range(n):
-                    best_sides[k] = sides[k]
-                istate[TS_PENDING] = 0
-            if istate[TS_BEST_AT_PERTURB] == 1 or istate[TS_N_PERTURB] == 0:
-                istate[TS_STRENGTH] = min_strength
-            else:
-                istate[TS_STRENGTH] = min(max_strength, istate[TS_STRENGTH] + min_strength)
-            istate[TS_BEST_AT_PERTURB] = 0
-            istate[TS_N_PERTURB] += 1
-            for k in range(n):
-                sides[k] = best_sides[k]
-            compute_gains(indptr, indices, weights, sides, gains)
-            current = fstate[TS_BEST]
-            for _ in range(istate[TS_STRENGTH]):
-                v = rand_below(rng_state, n)
-                current += gains[v]
-                flip_vertex(indptr, indices, weights, sides, gains, v)
-            fstate[TS_CURRENT] = current
+            _perturb(indptr, indices, weights, sides, gains, best_sides, istate, fstate,
+                     rng_state, min_strength, max_strength)
             _tabu_reset(indptr, indices, weights, sides, gains, tie, tabu, win_free,
                         win_tabu, size, istate, rng_state)
             istate[TS_LAST_BEST] = t
@@ -480,3 +495,194 @@ def branch_and_bound(w, rest, x, best_x, s_plus, s_minus, choice, state_i, state
     state_i[0] = 0
     state_i[1] += nodes
     return True
+
+
+# --- tabu search with gain buckets (integer weights) -------------------------------------
+# Free vertices sit in ``order`` sorted by gain: bucket ``b = gain + offset`` (offset =
+# max weighted degree + 1) occupies ``order[start[b]:start[b + 1]]`` and ``pos[v]`` is the
+# place of v. Tabu vertices sit in bucket 0 whatever their gain. Moving a vertex one
+# bucket up or down is one swap, so a gain change of ``2 |w|`` costs ``2 |w|`` swaps, and
+# the best free move is a random member of the highest non-empty bucket: O(1).
+
+@njit(cache=True)
+def _bucket_up(order, pos, start, v, b):
+    """Move v from bucket b to b + 1 (it becomes the first of b + 1)."""
+    last = start[b + 1] - 1
+    u = order[last]
+    p = pos[v]
+    order[p] = u
+    pos[u] = p
+    order[last] = v
+    pos[v] = last
+    start[b + 1] = last
+
+
+@njit(cache=True)
+def _bucket_down(order, pos, start, v, b):
+    """Move v from bucket b to b - 1 (it becomes the last of b - 1)."""
+    first = start[b]
+    u = order[first]
+    p = pos[v]
+    order[p] = u
+    pos[u] = p
+    order[first] = v
+    pos[v] = first
+    start[b] = first + 1
+
+
+@njit(cache=True)
+def _bucket_move(order, pos, start, v, b_from, b_to):
+    b = b_from
+    while b < b_to:
+        _bucket_up(order, pos, start, v, b)
+        b += 1
+    while b > b_to:
+        _bucket_down(order, pos, start, v, b)
+        b -= 1
+
+
+@njit(cache=True)
+def bucket_build(order, pos, start, gains, tabu, offset):
+    """Counting sort of the vertices into their buckets; returns the top bucket."""
+    n = gains.shape[0]
+    n_buckets = start.shape[0] - 1
+    for b in range(n_buckets + 1):
+        start[b] = 0
+    for v in range(n):
+        b = 0 if tabu[v] == 1 else np.int64(gains[v]) + offset
+        start[b + 1] += 1
+    for b in range(n_buckets):
+        start[b + 1] += start[b]
+    fill = start[:n_buckets].copy()
+    for v in range(n):
+        b = 0 if tabu[v] == 1 else np.int64(gains[v]) + offset
+        order[fill[b]] = v
+        pos[v] = fill[b]
+        fill[b] += 1
+    top = n_buckets - 1
+    while top >= 1 and start[top] == start[top + 1]:
+        top -= 1
+    return top
+
+
+@njit(cache=True)
+def tabu_search_buckets(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, order,
+                        pos, start, offset, heap_t, heap_v, best_sides, istate, fstate,
+                        rng_state, tenure_base, tenure_spread, stall_moves, min_strength,
+                        max_strength, target, n_moves):
+    """The search of :func:`tabu_search` with O(1) move selection; integer weights only.
+
+    Same moves, tenure, aspiration and perturbations as :func:`tabu_search` (ties
+    among free vertices go to a uniformly random member of the best bucket; among
+    tabu vertices to the larger ``tie`` key). ``gains`` must be whole numbers and
+    ``offset - 1`` at least the largest weighted degree, and the buckets must have
+    been filled by :func:`bucket_build` (its result stored in ``istate[TS_TOP]``).
+    All state lives in the arrays, so chunked calls make the same moves as one call.
+    Returns the moves made.
+    """
+    n = sides.shape[0]
+    max_gain = offset - 1
+    top = istate[TS_TOP]
+    done = 0
+    while done < n_moves:
+        if fstate[TS_BEST] >= target:
+            break
+        t = istate[TS_MOVE]
+        hs = istate[TS_HEAP_SIZE]
+        while hs > 0 and heap_t[0] <= t:
+            v = heap_v[0]
+            expiry = heap_t[0]
+            hs = _heap_pop(heap_t, heap_v, hs)
+            if tabu[v] == 1 and tabu_until[v] == expiry:
+                tabu[v] = 0
+                b = np.int64(gains[v]) + offset
+                _bucket_move(order, pos, start, v, 0, b)
+                if b > top:
+                    top = b
+        istate[TS_HEAP_SIZE] = hs
+
+        if t - istate[TS_LAST_BEST] > stall_moves:
+            _perturb(indptr, indices, weights, sides, gains, best_sides, istate, fstate,
+                     rng_state, min_strength, max_strength)
+            for v in range(n):
+                tabu[v] = 0
+            istate[TS_HEAP_SIZE] = 0
+            hs = 0
+            top = bucket_build(order, pos, start, gains, tabu, offset)
+            istate[TS_LAST_BEST] = t
+
+        current = fstate[TS_CURRENT]
+        while top >= 1 and start[top] == start[top + 1]:
+            top -= 1
+        a = -1
+        if top >= 1:
+            a = order[start[top] + rand_below(rng_state, start[top + 1] - start[top])]
+        b = -1
+        if current + max_gain > fstate[TS_BEST] + 0.5:
+            for k in range(start[0], start[1]):
+                u = order[k]
+                if b < 0 or gains[u] > gains[b] or (gains[u] == gains[b] and tie[u] > tie[b]):
+                    b = u
+        if b >= 0 and current + gains[b] > fstate[TS_BEST] + 0.5 and (a < 0 or gains[b] > gains[a]):
+            v = b
+        elif a >= 0:
+            v = a
+        else:
+            v = b
+        if istate[TS_PENDING] == 1 and gains[v] <= 0.5:
+            for k in range(n):
+                best_sides[k] = sides[k]
+            istate[TS_PENDING] = 0
+
+        current += gains[v]
+        xi = sides[v]
+        for k in range(indptr[v], indptr[v + 1]):
+            j = indices[k]
+            old = gains[j]
+            gains[j] = old - 2.0 * weights[k] * xi * sides[j]
+            if tabu[j] == 1:
+                tie[j] = rand_u64(rng_state)
+            else:
+                b_old = np.int64(old) + offset
+                b_new = np.int64(gains[j]) + offset
+                _bucket_move(order, pos, start, j, b_old, b_new)
+                if b_new > top:
+                    top = b_new
+        # v leaves its bucket for the tabu bucket 0
+        if tabu[v] == 0:
+            _bucket_move(order, pos, start, v, np.int64(gains[v]) + offset, 0)
+        sides[v] = -xi
+        gains[v] = -gains[v]
+        tie[v] = rand_u64(rng_state)
+        tenure = tenure_base
+        if tenure_spread > 0:
+            tenure += rand_below(rng_state, tenure_spread + 1)
+        tabu[v] = 1
+        tabu_until[v] = t + 1 + tenure
+        if hs >= heap_t.shape[0]:
+            u = heap_v[0]
+            expiry = heap_t[0]
+            hs = _heap_pop(heap_t, heap_v, hs)
+            if tabu[u] == 1 and tabu_until[u] == expiry and u != v:
+                tabu[u] = 0
+                bu = np.int64(gains[u]) + offset
+                _bucket_move(order, pos, start, u, 0, bu)
+                if bu > top:
+                    top = bu
+        hs = _heap_push(heap_t, heap_v, hs, t + 1 + tenure, v)
+        istate[TS_HEAP_SIZE] = hs
+
+        fstate[TS_CURRENT] = current
+        istate[TS_MOVE] = t + 1
+        done += 1
+        if current > fstate[TS_BEST] + 0.5:
+            fstate[TS_BEST] = current
+            istate[TS_LAST_BEST] = t + 1
+            istate[TS_PENDING] = 1
+            istate[TS_BEST_AT_PERTURB] = 1
+    istate[TS_TOP] = top
+    if istate[TS_PENDING] == 1:
+        for k in range(n):
+            best_sides[k] = sides[k]
+        istate[TS_PENDING] = 0
+    return done

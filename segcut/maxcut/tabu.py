@@ -29,6 +29,10 @@ from .local import descend, gain_tolerance
 __all__ = ["tabu_search", "default_max_moves"]
 
 START_FROM = ("random", "sdp", "auto")
+SELECTIONS = ("auto", "buckets", "scan", "trees")
+
+# Largest weighted degree for which integer gains are kept in buckets (one slot per value).
+_MAX_BUCKET_GAIN = 1_000_000
 
 #: Graphs with at least this many vertices start from the SDP rounding under
 #: ``start_from="auto"`` (graphs with weights other than +-1 always do).
@@ -75,7 +79,7 @@ def _sdp_start(graph: SignedGraph, *, time_limit, rng):
 def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = None,
                 time_limit: float | None = None, tenure: int | None = None,
                 stall_moves: int | None = None, target: float | None = None,
-                selection: str = "auto"):
+                selection: str = "auto", tenure_spread: int | None = None):
     """Run tabu search with perturbations from ``start``; the engine of method ``"tabu"``.
 
     Parameters
@@ -92,16 +96,20 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
     time_limit : float, optional
         Stop after about this many seconds (checked every ~0.05 s).
     tenure : int, optional
-        Base tabu tenure; default ``n // 40`` (at least ``min(3, n // 4)`` and 1). Each flip adds a random 0 to
-        ``tenure // 2`` moves.
+        Shortest tabu tenure; default ``n // 40`` (at least ``min(3, n // 4)`` and 1).
+    tenure_spread : int, optional
+        Each flip's tenure adds a random 0 to ``tenure_spread`` moves; default
+        ``max(tenure // 2, 3 n // 40)``, so tenures range from about ``n / 40`` to ``n / 10``.
     stall_moves : int, optional
-        Moves without a new best before a perturbation; default ``2 n`` (at least 1000).
+        Moves without a new best before a perturbation; default ``5 n`` (at least 1000).
     target : float, optional
         Stop as soon as the best cut reaches this value (e.g. a proven upper bound).
-    selection : {"auto", "scan", "trees"}
-        How the best move is found: a full O(n) scan per move, or two tournament trees
-        updated in O(log n) per changed gain. "auto" scans when ``n`` is below 25 times
-        the mean degree times ``log2 n`` (small dense graphs).
+    selection : {"auto", "buckets", "scan", "trees"}
+        How the best move is found: gain buckets (whole-number weights only; O(1) per
+        move and per changed gain), a full O(n) scan per move, or two tournament trees
+        updated in O(log n) per changed gain. "auto" takes buckets when the weights
+        allow, else scans when ``n`` is below 25 times the mean degree times ``log2 n``
+        (small dense graphs), else trees.
 
     Returns
     -------
@@ -120,6 +128,8 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
     """
     if max_moves is None and time_limit is None:
         raise ValueError("tabu_search needs max_moves or time_limit (or both)")
+    if selection not in SELECTIONS:
+        raise ValueError(f"selection must be one of {', '.join(SELECTIONS)}; got {selection!r}")
     x = validate_sides(graph, start).copy()
     rng = np.random.default_rng(rng)
     n = graph.n_vertices
@@ -130,8 +140,10 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
         return best, info
     base = max(n // 40, min(3, n // 4), 1) if tenure is None else int(tenure)
     base = min(base, n - 1)
-    spread = base // 2
-    stall = max(1000, 2 * n) if stall_moves is None else int(stall_moves)
+    if tenure_spread is None:
+        tenure_spread = max(base // 2, (3 * n) // 40)  # tenures up to about n / 10
+    spread = max(0, min(int(tenure_spread), n - 1 - base))
+    stall = max(1000, 5 * n) if stall_moves is None else int(stall_moves)
     min_strength = max(1, round(0.01 * n))
     # small graphs need relatively larger jumps to leave a local optimum's basin
     max_strength = max(min_strength, round(0.1 * n), min(5, n // 2))
@@ -152,13 +164,29 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
     goal = math.inf if target is None else float(target) - tol
     args = (graph.indptr, graph.indices, graph.weights, x, gains, tie, tabu, tabu_until,
             win_free, win_tabu, size)
+    rows = np.repeat(np.arange(n), np.diff(graph.indptr))
+    max_degree = float(np.bincount(rows, weights=np.abs(graph.weights), minlength=n).max())
+    if selection == "auto":
+        if _has_integer_weights(graph) and max_degree <= _MAX_BUCKET_GAIN:
+            selection = "buckets"
+        elif n <= 25.0 * (2 * graph.n_edges / n) * max(1, size.bit_length() - 1):
+            selection = "scan"
+        else:
+            selection = "trees"
+    if selection == "buckets" and not (_has_integer_weights(graph) and max_degree <= _MAX_BUCKET_GAIN):
+        raise ValueError("selection='buckets' needs whole-number weights with weighted degrees "
+                         f"up to {_MAX_BUCKET_GAIN}")
+    use_scan = selection == "scan"
+    info["selection"] = selection
     _kernels.tabu_init(*args, best, istate, fstate, rng_state, min_strength)
-    # a full scan per move beats the trees' O(deg log n) updates on small dense graphs
-    if selection not in ("auto", "scan", "trees"):
-        raise ValueError(f"selection must be 'auto', 'scan' or 'trees'; got {selection!r}")
-    use_scan = selection == "scan" or (
-        selection == "auto" and n <= 25.0 * (2 * graph.n_edges / n) * max(1, size.bit_length() - 1))
-    info["selection"] = "scan" if use_scan else "trees"
+    if selection == "buckets":
+        offset = int(max_degree) + 1
+        order = np.empty(n, dtype=np.int64)
+        pos = np.empty(n, dtype=np.int64)
+        start_of = np.zeros(2 * offset + 1, dtype=np.int64)
+        istate[_kernels.TS_TOP] = _kernels.bucket_build(order, pos, start_of, gains, tabu, offset)
+        bucket_args = (graph.indptr, graph.indices, graph.weights, x, gains, tie, tabu,
+                       tabu_until, order, pos, start_of, offset)
     budget = np.iinfo(np.int64).max if max_moves is None else int(max_moves)
     clock = time.perf_counter()
     chunk = 2000
@@ -176,9 +204,14 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
             break
         step = min(left, chunk)
         t0 = time.perf_counter()
-        _kernels.tabu_search(*args, heap_t, heap_v, best, istate, fstate, rng_state,
-                             base, spread, stall, min_strength, max_strength, tol, goal, step,
-                             use_scan)
+        if selection == "buckets":
+            _kernels.tabu_search_buckets(*bucket_args, heap_t, heap_v, best, istate, fstate,
+                                         rng_state, base, spread, stall, min_strength,
+                                         max_strength, goal, step)
+        else:
+            _kernels.tabu_search(*args, heap_t, heap_v, best, istate, fstate, rng_state,
+                                 base, spread, stall, min_strength, max_strength, tol, goal, step,
+                                 use_scan)
         took = time.perf_counter() - t0
         if took > 0:
             chunk = int(min(max(1000, step * _CHUNK_SECONDS / took), 10 * chunk + 1000))
