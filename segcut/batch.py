@@ -53,6 +53,7 @@ import csv
 import fnmatch
 import functools
 import hashlib
+import itertools
 import io as _stdio
 import json
 import math
@@ -243,10 +244,10 @@ def hash_file(path) -> str:
 
     Examples
     --------
-    >>> import tempfile, os
+    >>> import tempfile, pathlib
     >>> with tempfile.TemporaryDirectory() as d:
-    ...     p = os.path.join(d, "x")
-    ...     _ = open(p, "wb").write(b"abc")
+    ...     p = pathlib.Path(d) / "x"
+    ...     _ = p.write_bytes(b"abc")
     ...     hash_file(p)[:23]
     'sha256:ba7816bf8f01cfea'
     """
@@ -285,10 +286,10 @@ class _Task:
     overlay: str
     config: object
     config_hash: str
-    input_hash: str
+    input_hash: str | None  # None: the worker hashes the file (a first run reads it once)
     seeds_path: str | None
     seeds_hash: str | None
-    seed: int
+    base_seed: int
 
 
 @functools.lru_cache(maxsize=1)
@@ -337,13 +338,21 @@ def _process(task: _Task) -> dict:
     started = time.perf_counter()
     record = {"input": task.input, "status": "ok"}
     caught_messages: list[str] = []
+    input_hash = task.input_hash
     try:
+        if input_hash is None:
+            try:
+                input_hash = hash_file(task.path)
+            except OSError as exc:
+                raise InputError(f"cannot read the file ({exc.strerror or exc})",
+                                 path=task.path) from None
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             image = read_image(task.path)
             seeds = None if task.seeds_path is None else read_seeds(task.seeds_path)
             result = split(image.array, task.config, seeds=seeds,
-                           channel_axis=image.channel_axis, rng=task.seed)
+                           channel_axis=image.channel_axis,
+                           rng=image_seed(task.base_seed, input_hash))
             out = Path(task.out_dir)
             mask_name = task.mask + (".tif" if image.is_stack else ".png")
             write_mask(result.mask, out / mask_name)
@@ -374,9 +383,9 @@ def _process(task: _Task) -> dict:
     record["warnings"] = seen
     record["input"] = task.input
     record["config_hash"] = task.config_hash
-    record["input_hash"] = task.input_hash
+    record["input_hash"] = input_hash
     record["seeds_hash"] = task.seeds_hash
-    record["seed"] = task.seed
+    record["seed"] = None if input_hash is None else image_seed(task.base_seed, input_hash)
     record["versions"] = _versions()
     stages = record.get("seconds")
     if isinstance(stages, dict):
@@ -388,7 +397,7 @@ def _process(task: _Task) -> dict:
 def _failed_record(task: _Task, error: str) -> dict:
     return {"input": task.input, "status": "failed", "error": error, "warnings": [],
             "config_hash": task.config_hash, "input_hash": task.input_hash,
-            "seeds_hash": task.seeds_hash, "seed": task.seed, "versions": _versions(),
+            "seeds_hash": task.seeds_hash, "versions": _versions(),
             "seconds": 0.0}
 
 
@@ -516,6 +525,7 @@ def _run_dask(tasks: Iterator[_Task], *, scheduler: str | None, dask_local: int 
         n_workers = max(1, len(client.scheduler_info().get("workers", {})))
         window = 2 * n_workers
         in_flight: dict = {}
+        counter = itertools.count()
         queue = as_completed()
         exhausted = False
 
@@ -527,8 +537,7 @@ def _run_dask(tasks: Iterator[_Task], *, scheduler: str | None, dask_local: int 
                     exhausted = True
                     return
                 future = client.submit(_process, task, pure=False,
-                                       key=f"segcut-{task.input_hash[7:23]}-{len(in_flight)}-"
-                                           f"{time.monotonic_ns()}")
+                                       key=f"segcut-image-{next(counter)}-{time.time_ns()}")
                 in_flight[future.key] = task
                 queue.add(future)
 
@@ -668,16 +677,17 @@ def _write_summary(out_dir: Path, records: dict) -> Path:
 
 # --- report -------------------------------------------------------------------------------
 
-def _thumbnail_png(path: Path, size: int) -> bytes | None:
+def _thumbnail_jpeg(path: Path, size: int) -> bytes | None:
+    """A small JPEG of an overlay (a few kB, so a page of thousands stays light)."""
     from PIL import Image
 
     try:
         with Image.open(path) as im:
             im.draft("RGB", (size, size))
             im = im.convert("RGB")
-            im.thumbnail((size, size))
+            im.thumbnail((size, size), Image.Resampling.LANCZOS)
             buffer = _stdio.BytesIO()
-            im.save(buffer, format="PNG", optimize=False)
+            im.save(buffer, format="JPEG", quality=85)
             return buffer.getvalue()
     except (OSError, ValueError):
         return None
@@ -719,7 +729,7 @@ def write_report(out_dir, *, title: str | None = None, thumbnail_size: int = _TH
         row["mask"] = record.get("mask")
         row["thumbnail"] = None
         if overlay and record.get("status") == "ok":
-            row["thumbnail"] = _thumbnail_png(out_dir / overlay, thumbnail_size)
+            row["thumbnail"] = _thumbnail_jpeg(out_dir / overlay, thumbnail_size)
     html = render_report(rows, title=title or out_dir.resolve().name)
     path = out_dir / REPORT_NAME
     _atomic_write(path, html.encode("utf-8"))
@@ -930,10 +940,6 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
     todo: list[tuple[InputItem, str, str | None, str | None]] = []
     resumed = 0
     for item in listing.items:
-        try:
-            input_hash = hash_file(item.path)
-        except OSError as exc:
-            input_hash = f"unreadable:{_one_line(exc.strerror or exc)}"
         seeds_path = None
         if seeds is not None:
             seeds_path = str(seeds) if seeds_dir is None else seed_index.get(item.stem) \
@@ -944,13 +950,19 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
                 seed_hashes[seeds_path] = hash_file(seeds_path)
             seeds_hash = seed_hashes[seeds_path]
         old = records.get(item.input)
+        input_hash = None  # hashed here only when an earlier result may be reused
         if (not force and old is not None and old.get("status") == "ok"
-                and old.get("config_hash") == config_hash and old.get("input_hash") == input_hash
+                and old.get("config_hash") == config_hash
                 and old.get("seeds_hash") == seeds_hash
                 and (out_dir / str(old.get("mask"))).is_file()
                 and (out_dir / str(old.get("overlay"))).is_file()):
-            resumed += 1
-            continue
+            try:
+                input_hash = hash_file(item.path)
+            except OSError:
+                input_hash = None  # the worker reports it
+            if input_hash is not None and old.get("input_hash") == input_hash:
+                resumed += 1
+                continue
         todo.append((item, input_hash, seeds_path, seeds_hash))
 
     def tasks() -> Iterator[_Task]:
@@ -960,7 +972,7 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
                 mask=f"{MASKS_DIR}/{item.stem}", overlay=f"{OVERLAYS_DIR}/{item.stem}.png",
                 config=config, config_hash=config_hash, input_hash=input_hash,
                 seeds_path=None if seeds_path is None else os.path.abspath(seeds_path),
-                seeds_hash=seeds_hash, seed=image_seed(base_seed, input_hash))
+                seeds_hash=seeds_hash, base_seed=base_seed)
 
     total = len(listing.items)
     done, failed = resumed, 0
@@ -1007,6 +1019,8 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
         close = getattr(results, "close", None)
         if close is not None:
             close()  # stops the workers (the executors' finally blocks)
+        # the file is the truth: a record appended just before an interrupt is kept
+        records = load_records(out_dir)
         _compact_records(out_dir, records)
         summary_path = _write_summary(out_dir, records)
         report_path = None

@@ -337,7 +337,7 @@ def render_report(rows: Sequence[dict], *, title: str = "segcut run",
         One per image, with ``input``, ``status``, ``foreground_fraction``,
         ``cut_value``, ``upper_bound``, ``gap``, ``n_superpixels``, ``seconds``,
         ``warnings`` (list of str), ``error`` (str or None) and optionally
-        ``thumbnail`` (PNG bytes) and ``overlay`` (a link, relative to the page).
+        ``thumbnail`` (PNG or JPEG bytes) and ``overlay`` (a link, relative to the page).
     title : str
         Shown as the page heading.
     flag_options : dict, optional
@@ -370,7 +370,8 @@ def render_report(rows: Sequence[dict], *, title: str = "segcut run",
         search_text = " ".join([name, status, *flags, *notes]).lower()
         thumb = row.get("thumbnail")
         if thumb:
-            src = "data:image/png;base64," + base64.b64encode(thumb).decode("ascii")
+            mime = "image/jpeg" if thumb[:2] == b"\xff\xd8" else "image/png"
+            src = f"data:{mime};base64," + base64.b64encode(thumb).decode("ascii")
             img = f'<img src="{src}" alt="overlay of {html.escape(name)}">'
             link = row.get("overlay")
             cell = f'<a href="{html.escape(link)}">{img}</a>' if link else img
