@@ -121,7 +121,7 @@ def main(argv=None):
     parser.add_argument("--instances", nargs="*", default=INSTANCES)
     parser.add_argument("--random-sizes", nargs="*", type=int, default=[100, 200, 400])
     parser.add_argument("--scs-sizes", nargs="*", type=int, default=[100, 200, 400])
-    parser.add_argument("--scs-eps", type=float, default=1e-5)
+    parser.add_argument("--scs-eps", type=float, default=1e-4)
     parser.add_argument("--scs-time-limit", type=float, default=180.0)
     parser.add_argument("--repeats", type=int, default=3)
     args = parser.parse_args(argv)
