@@ -741,8 +741,16 @@ def _solve_sdp(graph: SignedGraph, *, time_limit=None, rng=None, tol: float = 1e
     }
     if not relaxation.certified:
         info["uncertified_bound"] = float(math.fsum(relaxation.dual))
+    if relaxation.certified:
+        about = (f"relaxation {relaxation.relaxation_value:.10g} certified within relative "
+                 f"{relaxation.gap:.2g} after {relaxation.n_sweeps} sweeps ({relaxation.status})")
+    else:
+        about = (f"relaxation {relaxation.relaxation_value:.10g} after {relaxation.n_sweeps} "
+                 "sweeps; its bound could not be confirmed by a factorisation, none reported")
+    message = (f"{about}; best of {n_hyperplanes} hyperplane roundings"
+               + (", 1-flip polished" if polish else ""))
     return CutResult(sides=sides, value=value, upper_bound=bound, gap=None, method="sdp",
-                     status=status, message=relaxation.message, n_iter=relaxation.n_sweeps,
+                     status=status, message=message, n_iter=relaxation.n_sweeps,
                      info=info)
 
 
