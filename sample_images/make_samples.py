@@ -197,7 +197,7 @@ def scene_oak_gray(rng):
     colour = leaf_colour(blade, u, v, rng, tip=(70, 110, 45), base=(95, 120, 50),
                          vein=(150, 165, 110))
     picture, truth = compose(paper, [(blade, colour), (stalk, np.full(shape + (3,), 90.0))],
-                             light=lamp(shape, centre=(80, -40), falloff=0.9), rng=rng,
+                             light=lamp(shape, centre=(80, -40), falloff=0.45), rng=rng,
                              noise=3.0)
     return to_uint8(to_gray(picture)), truth, ".png"
 

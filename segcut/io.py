@@ -41,6 +41,9 @@ Rules, in one place:
   become uint16, others float64; booleans become uint8 0 / 255.
 - **16-bit colour PNG** is read at 8 bits per channel (a Pillow limitation); a note
   says so.
+- **TIFF** is read with tifffile; compressions it decodes only with the optional
+  ``imagecodecs`` package (LZW, JPEG, CCITT...) are read with Pillow instead. What
+  tifffile logs about a damaged file goes into the warnings, not to the terminal.
 - An image with no contrast at all is *not* an error here (the pipeline decides).
 
 Notes collected while reading are returned in :attr:`ImageData.warnings`; nothing is
@@ -68,7 +71,6 @@ import math
 import os
 import secrets
 import warnings
-import zlib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterator
@@ -273,7 +275,7 @@ def _too_many(n_pixels: int, max_pixels: int, path, shape) -> None:
         )
 
 
-def _read_with_pillow(path, max_pixels: int, head: bytes) -> ImageData:
+def _read_with_pillow(path, max_pixels: int, head: bytes, *, tiff_fallback=False) -> ImageData:
     from PIL import Image, ImageOps, UnidentifiedImageError
 
     notes: list[str] = []
@@ -293,12 +295,16 @@ def _read_with_pillow(path, max_pixels: int, head: bytes) -> ImageData:
                 "(PNG, JPEG, TIFF and BMP are read)",
                 path=path,
             ) from None
-        except (OSError, SyntaxError, ValueError, EOFError) as err:
+        except MemoryError:
+            raise InputError("image too large to hold in memory", path=path) from None
+        except Exception as err:  # noqa: BLE001 - damaged headers can fail in many ways
             raise InputError(
                 f"truncated or corrupt image data ({_one_line(err)})", path=path
             ) from None
         with img:
             fmt = _PIL_FORMATS.get(img.format or "")
+            if img.format == "TIFF" and tiff_fallback:
+                fmt = "TIFF"
             if fmt is None:
                 raise InputError(
                     f"unsupported image format {img.format} (PNG, JPEG, TIFF and BMP are read)",
@@ -309,17 +315,26 @@ def _read_with_pillow(path, max_pixels: int, head: bytes) -> ImageData:
                 raise InputError(f"image has no pixels (size {width}x{height})", path=path)
             _too_many(width * height, max_pixels, path, (height, width))
             n_frames = getattr(img, "n_frames", 1)
-            if n_frames > 1:
+            if fmt == "TIFF" and n_frames > 1:
+                _too_many(width * height * n_frames, max_pixels, path, (n_frames, height, width))
+            elif n_frames > 1:
                 notes.append(f"file holds {n_frames} pictures; the first was read")
             mode = img.mode
             if fmt == "PNG" and len(head) >= 26 and head[12:16] == b"IHDR":
                 if head[24] == 16 and head[25] in (2, 6):
                     notes.append("16-bit colour PNG read at 8 bits per channel")
             try:
-                img.load()  # force the full decode: truncated data fails here
-                img = ImageOps.exif_transpose(img)
-                array, channel_axis = _pillow_to_array(img, notes)
-            except (OSError, SyntaxError, ValueError, EOFError, zlib.error) as err:
+                if fmt == "TIFF" and n_frames > 1:
+                    array, channel_axis = _pillow_stack(img, n_frames, notes, path)
+                else:
+                    img.load()  # force the full decode: truncated data fails here
+                    img = ImageOps.exif_transpose(img)
+                    array, channel_axis = _pillow_to_array(img, notes)
+            except InputError:
+                raise
+            except MemoryError:
+                raise InputError("image too large to hold in memory", path=path) from None
+            except Exception as err:  # noqa: BLE001 - damaged data can break a decoder anywhere
                 raise InputError(
                     f"truncated or corrupt image data ({_one_line(err)})", path=path
                 ) from None
@@ -328,6 +343,20 @@ def _read_with_pillow(path, max_pixels: int, head: bytes) -> ImageData:
             continue
         notes.append(_one_line(w.message))
     return ImageData(array, channel_axis, _as_str(path), fmt, mode, tuple(notes))
+
+
+def _pillow_stack(img, n_frames: int, notes: list, path) -> tuple[np.ndarray, int | None]:
+    """All pages of a multi-page TIFF read by Pillow, as a stack (same size and kind)."""
+    planes, kinds = [], set()
+    for index in range(n_frames):
+        img.seek(index)
+        img.load()
+        plane, channel_axis = _pillow_to_array(img, notes)
+        planes.append(plane)
+        kinds.add((plane.shape, plane.dtype.str, channel_axis))
+    if len(kinds) > 1:
+        raise InputError("TIFF pages differ in size or pixel type; cannot stack them", path=path)
+    return np.stack(planes), channel_axis
 
 
 def _pillow_to_array(img, notes: list) -> tuple[np.ndarray, int | None]:
@@ -374,7 +403,7 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
 
     notes: list[str] = []
     try:
-        with tifffile.TiffFile(path) as tif:
+        with _tifffile_log(notes), tifffile.TiffFile(path) as tif:
             if not tif.series:
                 raise InputError("TIFF file holds no image", path=path)
             series = tif.series[0]
@@ -391,13 +420,25 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
             colormap = getattr(page, "colormap", None)
     except InputError:
         raise
-    except (tifffile.TiffFileError, OSError, ValueError, EOFError, zlib.error,
-            KeyError, IndexError, RuntimeError) as err:
-        raise InputError(f"truncated or corrupt TIFF data ({_one_line(err)})", path=path) from None
     except MemoryError:
         raise InputError("TIFF too large to hold in memory", path=path) from None
+    except Exception as err:  # noqa: BLE001 - a damaged file can break the decoder anywhere
+        if "imagecodecs" in str(err):
+            # a compression tifffile decodes only with the optional imagecodecs package
+            # (LZW, JPEG, CCITT...): Pillow reads most of those
+            try:
+                return _read_with_pillow(path, max_pixels, b"", tiff_fallback=True)
+            except InputError as fallback:
+                raise InputError(
+                    f"TIFF compression not supported ({_one_line(err)}; Pillow: "
+                    f"{fallback.message})", path=path) from None
+        raise InputError(f"truncated or corrupt TIFF data ({_one_line(err)})", path=path) from None
 
     array = np.asarray(array)
+    if array.size == 0 or array.ndim != len(axes):
+        raise InputError(
+            f"corrupt TIFF: its data (shape {array.shape}) does not match its header "
+            f"(axes {axes}, shape {shape})", path=path)
     mode = f"{photometric} {array.dtype.name}"
     if array.dtype.kind == "c":
         raise InputError(f"complex-valued TIFF ({array.dtype}) is not an image segcut reads",
@@ -453,6 +494,28 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
     array = _normalise_dtype(array, path, notes)
     return ImageData(np.ascontiguousarray(array), channel_axis, _as_str(path), "TIFF", mode,
                      tuple(notes))
+
+
+@contextlib.contextmanager
+def _tifffile_log(notes: list):
+    """Collect what tifffile logs (damaged tags, odd metadata) into ``notes`` instead of
+    letting it reach the terminal."""
+    import logging
+
+    class _Collect(logging.Handler):
+        def emit(self, record):
+            notes.append("TIFF reader: " + _one_line(record.getMessage()))
+
+    logger = logging.getLogger("tifffile")
+    handler = _Collect(logging.WARNING)
+    saved = logger.propagate
+    logger.addHandler(handler)
+    logger.propagate = False
+    try:
+        yield
+    finally:
+        logger.removeHandler(handler)
+        logger.propagate = saved
 
 
 def _photometric_name(page) -> str:
