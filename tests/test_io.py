@@ -617,18 +617,45 @@ def test_atomic_path_failure_creates_nothing(tmp_path):
 
 
 def test_failed_writer_leaves_no_partial_target(tmp_path, monkeypatch):
-    # An encoder that dies part-way through: the old mask survives whole.
-    write_mask(np.ones((4, 4), bool), tmp_path / "m.png")
-    before = (tmp_path / "m.png").read_bytes()
+    # The TIFF writer dies after writing half its bytes: the old mask survives whole,
+    # the half-written temporary file is removed, the error is one line.
+    stack = np.ones((2, 4, 4), bool)
+    write_mask(stack, tmp_path / "m.tif")
+    before = (tmp_path / "m.tif").read_bytes()
 
-    def broken(array):
-        raise OSError("no space left on device")
+    def dies_midway(path, data, **options):
+        Path(path).write_bytes(before[: len(before) // 2])
+        raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr("segcut.io._png_bytes", broken)
-    with pytest.raises(OSError, match="no space left"):
-        write_mask(np.zeros((4, 4), bool), tmp_path / "m.png")
-    assert (tmp_path / "m.png").read_bytes() == before
-    assert os.listdir(tmp_path) == ["m.png"]
+    monkeypatch.setattr(tifffile, "imwrite", dies_midway)
+    with pytest.raises(SegcutError, match=r"m\.tif: cannot write the file \(No space left") as info:
+        write_mask(~stack, tmp_path / "m.tif")
+    assert "\n" not in str(info.value)
+    assert (tmp_path / "m.tif").read_bytes() == before
+    assert os.listdir(tmp_path) == ["m.tif"]
+
+
+def test_failed_flush_leaves_old_file(tmp_path, monkeypatch):
+    write_text_atomic(tmp_path / "run.toml", "old\n")
+
+    def no_space(fd):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(os, "fsync", no_space)
+    with pytest.raises(SegcutError, match="cannot write the file"):
+        write_text_atomic(tmp_path / "run.toml", "new\n")
+    monkeypatch.undo()
+    assert (tmp_path / "run.toml").read_text() == "old\n"
+    assert os.listdir(tmp_path) == ["run.toml"]
+
+
+def test_unwritable_target_is_one_line(tmp_path):
+    blocker = tmp_path / "masks"
+    blocker.write_text("a file where a folder should be")
+    with pytest.raises(SegcutError, match=r"masks.a\.png: cannot write the file"):
+        write_mask(np.ones((2, 2), bool), blocker / "a.png")
+    with pytest.raises(SegcutError, match=r"records\.jsonl: cannot write the file"):
+        append_line(blocker / "records.jsonl", "{}")
 
 
 def test_atomic_path_permissions_follow_umask(tmp_path):
@@ -801,3 +828,12 @@ def test_damaged_files_give_an_image_or_one_line_error(tmp_path, kind, cut, flip
     else:
         assert image.array.size > 0
         assert image.array.dtype in (np.uint8, np.uint16, np.float32, np.float64)
+
+
+def test_overlay_bytes_are_reproducible_and_level_checked(tmp_path):
+    mask = GRAY > 120
+    write_overlay(RGB, mask, tmp_path / "a.png")
+    write_overlay(RGB.copy(), mask.copy(), tmp_path / "b.png")
+    assert (tmp_path / "a.png").read_bytes() == (tmp_path / "b.png").read_bytes()
+    with pytest.raises(ValueError, match="compress_level must be an integer from 0 to 9"):
+        write_image(GRAY, tmp_path / "g.png", compress_level=10)
