@@ -1,0 +1,166 @@
+"""Max-cut benchmark: value / best known, bound and time per instance and method, and the
+1-flip local search against networkx ``one_exchange`` side by side.
+
+Usage (from the project root)::
+
+    python tests/benchmarks/bench_maxcut.py                      # ../shared/data/gset, 10 s
+    python tests/benchmarks/bench_maxcut.py --time-limit 2 --instances G11 G14
+    python tests/benchmarks/bench_maxcut.py --folder my_graphs --best-known my_graphs/best.csv
+
+The folder holds edge-list files (``n m`` then ``i j w``); the CSV has the columns
+``instance`` and ``best_known_cut`` (other columns are ignored). Prints markdown tables.
+Times are wall-clock seconds of the solver alone (kernels compiled or loaded from the
+cache beforehand); on a shared machine they depend on the load.
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import platform
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+from segcut.graph import cut_value, graph_from_edges
+from segcut.maxcut import available_methods, solve_maxcut
+from segcut.maxcut.formats import read_graph
+from segcut.maxcut.local import descend
+
+PROJECT_ROOT = Path(__file__).resolve().parents[2]
+DEFAULT_FOLDER = PROJECT_ROOT.parent / "shared" / "data" / "gset"
+
+
+def read_best_known(path: Path) -> dict[str, float]:
+    with open(path, newline="", encoding="utf-8") as fh:
+        return {row["instance"]: float(row["best_known_cut"]) for row in csv.DictReader(fh)}
+
+
+def warm_up(methods) -> None:
+    tiny = graph_from_edges(5, [0, 1, 2, 3, 4, 0], [1, 2, 3, 4, 0, 2], [1, 1, 1, 1, 1, -0.5])
+    for method in methods:
+        solve_maxcut(tiny, method=method, time_limit=0.05, rng=0)
+    solve_maxcut(graph_from_edges(3, [0, 1], [1, 2]), method="tabu", max_moves=10, rng=0)
+
+
+def solve_row(name, graph, method, best, time_limit, seed):
+    limit = time_limit if method in ("tabu",) else None
+    result = solve_maxcut(graph, method=method, time_limit=limit, rng=seed)
+    bound = "" if result.upper_bound is None else f"{result.upper_bound:.2f}"
+    ratio = "" if best is None else f"{result.value / best:.4f}"
+    return (f"| {name} | {graph.n_vertices} | {method} | {result.value:g} | {ratio} | {bound} | "
+            f"{result.status} | {result.seconds:.4g} |"), result
+
+
+def induced_subgraph(graph, n_keep):
+    i, j, w = graph.edges()
+    keep = (i < n_keep) & (j < n_keep)
+    return graph_from_edges(min(n_keep, graph.n_vertices), i[keep], j[keep], w[keep])
+
+
+def compare_with_networkx(name, graph, max_descents=100):
+    """networkx one_exchange from the empty cut vs. our descents until equal or better."""
+    import networkx as nx
+    from networkx.algorithms.approximation.maxcut import one_exchange
+
+    h = nx.Graph()
+    h.add_nodes_from(range(graph.n_vertices))
+    i, j, w = graph.edges()
+    h.add_weighted_edges_from(zip(i.tolist(), j.tolist(), w.tolist()))
+    t0 = time.perf_counter()
+    nx_value, _ = one_exchange(h, seed=0, weight="weight")
+    nx_seconds = time.perf_counter() - t0
+
+    start = np.ones(graph.n_vertices, dtype=np.int8)  # networkx starts from the empty cut
+    ours_seconds = 0.0
+    ours_value = -np.inf
+    descents = 0
+    while descents < max_descents and ours_value < nx_value - 1e-9:
+        t0 = time.perf_counter()
+        sides, _ = descend(graph, start, rng=descents)
+        ours_seconds += time.perf_counter() - t0
+        ours_value = max(ours_value, cut_value(graph, sides))
+        descents += 1
+    ratio = nx_seconds / ours_seconds if ours_value >= nx_value - 1e-9 else float("nan")
+    return (f"| {name} | {graph.n_vertices} | {graph.n_edges} | {nx_value:g} | {nx_seconds:.2f} | "
+            f"{ours_value:g} | {descents} | {ours_seconds * 1e3:.3f} | {ratio:,.0f}x |")
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--folder", type=Path, default=DEFAULT_FOLDER,
+                        help="folder of edge-list files (default ../shared/data/gset)")
+    parser.add_argument("--best-known", type=Path, default=None,
+                        help="CSV with columns instance,best_known_cut (default FOLDER/best_known.csv)")
+    parser.add_argument("--instances", nargs="*", default=None, help="instance names (default all)")
+    parser.add_argument("--methods", nargs="*", default=["tabu", "local", "sdp"])
+    parser.add_argument("--time-limit", type=float, default=10.0, help="seconds per tabu run")
+    parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument("--nx-instances", nargs="*", default=None,
+                        help="instances for the networkx comparison (default: the one with the "
+                             "fewest edges; networkx needs minutes on a whole 800-vertex graph)")
+    parser.add_argument("--nx-vertices", type=int, default=0,
+                        help="compare on the subgraph induced by the first N vertices (0 = whole graph)")
+    args = parser.parse_args(argv)
+
+    if not args.folder.is_dir():
+        print(f"no graph folder at {args.folder}; nothing to benchmark", file=sys.stderr)
+        return 0
+    best_path = args.best_known or args.folder / "best_known.csv"
+    best_known = read_best_known(best_path) if best_path.exists() else {}
+    files = sorted(p for p in args.folder.iterdir() if p.suffix in (".txt", ".graphml"))
+    if args.instances:
+        files = [p for p in files if p.stem in args.instances]
+    files.sort(key=lambda p: (len(p.stem), p.stem))
+    methods = [m for m in args.methods if m in available_methods()]
+
+    print(f"# max-cut benchmark ({platform.processor() or platform.machine()}, "
+          f"python {platform.python_version()})")
+    print(f"command: python tests/benchmarks/bench_maxcut.py {' '.join(argv or sys.argv[1:])}")
+    print()
+    warm_up(methods)
+    print("| instance | n | method | value | value/best | upper bound | status | seconds |")
+    print("|---|---|---|---|---|---|---|---|")
+    ratios: dict[str, list[float]] = {m: [] for m in methods}
+    graphs = {}
+    for path in files:
+        graph = read_graph(path)
+        graphs[path.stem] = graph
+        best = best_known.get(path.stem)
+        for method in methods:
+            row, result = solve_row(path.stem, graph, method, best, args.time_limit, args.seed)
+            print(row, flush=True)
+            if best:
+                ratios[method].append(result.value / best)
+    print()
+    print("| method | instances | mean value/best | min value/best |")
+    print("|---|---|---|---|")
+    for method, values in ratios.items():
+        if values:
+            print(f"| {method} | {len(values)} | {np.mean(values):.4f} | {np.min(values):.4f} |")
+
+    chosen = args.nx_instances
+    if chosen is None:
+        chosen = sorted(graphs, key=lambda k: graphs[k].n_edges)[:1]
+    if chosen:
+        print()
+        print("1-flip local search vs networkx one_exchange (same start: the empty cut; ours "
+              "repeats descents from it with new vertex orders until its cut is equal or better)")
+        print()
+        print("| instance | n | m | networkx cut | networkx s | our cut | descents | our ms | speed-up |")
+        print("|---|---|---|---|---|---|---|---|---|")
+        for name in chosen:
+            if name not in graphs:
+                continue
+            graph = graphs[name]
+            if args.nx_vertices:
+                graph = induced_subgraph(graph, args.nx_vertices)
+                name = f"{name}[:{args.nx_vertices}]"
+            print(compare_with_networkx(name, graph), flush=True)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
