@@ -147,6 +147,10 @@ class ImageData:
     warnings : tuple of str
         Notes on what reading changed or could not keep (alpha dropped, values
         replaced...). Empty for a plain image.
+    alpha : ndarray or None
+        The dropped alpha channel (spatial shape of :attr:`array`, in the file's own
+        range: 0 is fully transparent), or None when the file has none. It is not
+        applied to :attr:`array`; :func:`read_seeds` uses it.
 
     Examples
     --------
@@ -163,6 +167,7 @@ class ImageData:
     format: str
     mode: str
     warnings: tuple = ()
+    alpha: np.ndarray | None = None
 
     @property
     def dtype(self) -> np.dtype:
@@ -279,6 +284,7 @@ def _read_with_pillow(path, max_pixels: int, head: bytes, *, tiff_fallback=False
     from PIL import Image, ImageOps, UnidentifiedImageError
 
     notes: list[str] = []
+    extras: dict = {}
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
@@ -329,7 +335,7 @@ def _read_with_pillow(path, max_pixels: int, head: bytes, *, tiff_fallback=False
                 else:
                     img.load()  # force the full decode: truncated data fails here
                     img = ImageOps.exif_transpose(img)
-                    array, channel_axis = _pillow_to_array(img, notes)
+                    array, channel_axis = _pillow_to_array(img, notes, extras)
             except InputError:
                 raise
             except MemoryError:
@@ -342,7 +348,8 @@ def _read_with_pillow(path, max_pixels: int, head: bytes, *, tiff_fallback=False
         if issubclass(w.category, Image.DecompressionBombWarning):
             continue
         notes.append(_one_line(w.message))
-    return ImageData(array, channel_axis, _as_str(path), fmt, mode, tuple(notes))
+    return ImageData(array, channel_axis, _as_str(path), fmt, mode, tuple(notes),
+                     extras.get("alpha"))
 
 
 def _pillow_stack(img, n_frames: int, notes: list, path) -> tuple[np.ndarray, int | None]:
@@ -359,7 +366,8 @@ def _pillow_stack(img, n_frames: int, notes: list, path) -> tuple[np.ndarray, in
     return np.stack(planes), channel_axis
 
 
-def _pillow_to_array(img, notes: list) -> tuple[np.ndarray, int | None]:
+def _pillow_to_array(img, notes: list, extras: dict | None = None
+                     ) -> tuple[np.ndarray, int | None]:
     mode = img.mode
     if mode == "1":
         return np.asarray(img, dtype=np.uint8) * np.uint8(255), None
@@ -375,6 +383,8 @@ def _pillow_to_array(img, notes: list) -> tuple[np.ndarray, int | None]:
         rgba = img.convert("LA" if mode in ("LA", "La") else "RGBA")
         values = np.asarray(rgba)
         alpha = values[..., -1]
+        if extras is not None:
+            extras["alpha"] = np.ascontiguousarray(alpha)
         if (alpha < 255).any():
             share = float((alpha < 255).mean())
             notes.append(f"alpha channel dropped ({100 * share:.1f}% of pixels not fully opaque)")
@@ -471,12 +481,14 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
         array = _invert(array)
 
     channel_axis = None
+    alpha = None
     if has_samples:
         n_channels = array.shape[-1]
         if n_channels == 1:
             array = array[..., 0]
         elif n_channels == 2:
             notes.append("alpha channel dropped (gray + alpha TIFF)")
+            alpha = np.ascontiguousarray(array[..., 1])
             array = array[..., 0]
         elif photometric == "separated" and n_channels == 4:
             array = _cmyk_to_rgb(array)
@@ -484,6 +496,7 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
         elif n_channels in (3, 4):
             if n_channels == 4:
                 notes.append("fourth channel (alpha) dropped")
+                alpha = np.ascontiguousarray(array[..., 3])
             array = array[..., :3]
             channel_axis = -1
         else:
@@ -493,7 +506,7 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
             )
     array = _normalise_dtype(array, path, notes)
     return ImageData(np.ascontiguousarray(array), channel_axis, _as_str(path), "TIFF", mode,
-                     tuple(notes))
+                     tuple(notes), alpha)
 
 
 @contextlib.contextmanager
@@ -648,7 +661,8 @@ def read_seeds(path, *, max_pixels: int = MAX_PIXELS) -> np.ndarray:
       channel, scaled to 0..1 by the type's range) decides: dark (below 1/4) is
       unknown, mid-tones (1/4 to 3/4) are background, light (above 3/4) is
       foreground. Draw foreground in white and background in mid-gray on a black
-      canvas.
+      canvas, or on a transparent layer: fully transparent pixels are unknown,
+      whatever colour they store.
 
     Parameters
     ----------
@@ -679,17 +693,19 @@ def read_seeds(path, *, max_pixels: int = MAX_PIXELS) -> np.ndarray:
     """
     data = read_image(path, max_pixels=max_pixels)
     values = _gray_levels(data)
-    if data.channel_axis is None and values.dtype.kind in "ui" and values.size:
-        if int(values.max()) <= 2:
-            return values.astype(np.uint8)
-    if values.dtype.kind in "ui":
-        scaled = values.astype(np.float64) / np.iinfo(values.dtype).max
+    if data.channel_axis is None and values.dtype.kind in "ui" and int(values.max()) <= 2:
+        labels = values.astype(np.uint8)  # a label image
     else:
-        top = float(values.max())
-        scaled = values.astype(np.float64) / (top if top > 1.0 else 1.0)
-    labels = np.full(values.shape, SEED_UNKNOWN, dtype=np.uint8)
-    labels[scaled >= 0.25] = SEED_BACKGROUND
-    labels[scaled > 0.75] = SEED_FOREGROUND
+        if values.dtype.kind in "ui":
+            scaled = values.astype(np.float64) / np.iinfo(values.dtype).max
+        else:
+            top = float(values.max())
+            scaled = values.astype(np.float64) / (top if top > 1.0 else 1.0)
+        labels = np.full(values.shape, SEED_UNKNOWN, dtype=np.uint8)
+        labels[scaled >= 0.25] = SEED_BACKGROUND
+        labels[scaled > 0.75] = SEED_FOREGROUND
+    if data.alpha is not None and data.alpha.shape == labels.shape:
+        labels[data.alpha == 0] = SEED_UNKNOWN
     return labels
 
 

@@ -6,7 +6,6 @@ expected arrays are built independently (palette lookup, rotations, CMYK arithme
 
 from __future__ import annotations
 
-import json
 import os
 import struct
 import threading
@@ -481,6 +480,24 @@ def test_read_seeds_labels_and_drawn_markers(tmp_path):
     colour[0, 2] = (128, 128, 128)
     Image.fromarray(colour).save(tmp_path / "colour.png")
     assert read_seeds(tmp_path / "colour.png").tolist() == [[0, 1, 2]]
+
+
+def test_read_seeds_transparent_layer(tmp_path):
+    # Markers drawn on a transparent layer: transparent pixels are unknown even when
+    # they store white; opaque white is foreground, opaque gray background.
+    layer = np.zeros((2, 3, 4), np.uint8)
+    layer[..., :3] = 255  # transparent white everywhere
+    layer[0, 1] = (255, 255, 255, 255)
+    layer[1, 2] = (128, 128, 128, 255)
+    Image.fromarray(layer).save(tmp_path / "layer.png")
+    data = read_image(tmp_path / "layer.png")
+    assert data.alpha is not None and data.alpha.shape == (2, 3)
+    assert read_seeds(tmp_path / "layer.png").tolist() == [[0, 1, 0], [0, 0, 2]]
+    labels = np.zeros((2, 2, 2), np.uint8)
+    labels[0, 0] = (1, 255)
+    labels[1, 1] = (2, 0)  # a background label, but transparent
+    Image.fromarray(labels).save(tmp_path / "labels_la.png")
+    assert read_seeds(tmp_path / "labels_la.png").tolist() == [[1, 0], [0, 0]]
 
 
 def test_read_seeds_error(tmp_path):
