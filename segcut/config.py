@@ -27,6 +27,7 @@ SECTIONS = {
     "n_superpixels": "superpixels",
     "compactness": "superpixels",
     "pixel_grid_max_pixels": "superpixels",
+    "sigma": "superpixels",
     "affinity": "affinity",
     "threshold_quantile": "affinity",
     "smoothness": "affinity",
@@ -57,12 +58,15 @@ class SplitConfig:
     ----------
     n_superpixels : int or None
         Target number of SLIC superpixels; None chooses it from the image size (about
-        one per 256 pixels, at least 64 and at most 6000; ~1000 for 512x512).
+        one per 256 pixels, at least 200 and at most 6000; ~1000 for 512x512).
     compactness : float
         SLIC compactness (colour against space, in CIELAB units).
     pixel_grid_max_pixels : int
         Images with at most this many pixels (voxels) use every pixel as a vertex
         (a 4-connected / 6-connected grid graph) instead of superpixels.
+    sigma : float
+        Gaussian smoothing (pixels) before SLIC, so pixel noise does not shatter the
+        superpixels.
     affinity : str
         Name of the affinity model turning region distances into signed weights
         (see :func:`segcut.affinity.available_affinity_models`).
@@ -101,7 +105,8 @@ class SplitConfig:
     time_limit : float or None
         Seconds the solver may use per solve (None: the iteration budget decides).
     max_moves : int or None
-        Deterministic move budget of search methods that take one.
+        Deterministic move budget of search methods that take one (None: 20 moves
+        per vertex).
     fill_holes : bool
         Fill background holes enclosed by the foreground after solving.
     min_region_size : int
@@ -119,8 +124,9 @@ class SplitConfig:
     """
 
     n_superpixels: int | None = None
-    compactness: float = 10.0
-    pixel_grid_max_pixels: int = 4096
+    compactness: float = 20.0
+    pixel_grid_max_pixels: int = 1024
+    sigma: float = 1.0
     affinity: str = "colour"
     threshold_quantile: float = 0.85
     smoothness: float = 4.0
@@ -128,8 +134,8 @@ class SplitConfig:
     prior: tuple = ()
     box: tuple | None = None
     prior_strength: float = 2.0
-    border_width: float = 0.03
-    center_fraction: float = 0.3
+    border_width: float = 0.05
+    center_fraction: float = 0.2
     colour_model: bool = True
     n_colour_words: int = 24
     model_rounds: int = 3
@@ -306,6 +312,7 @@ def _validate(cfg: SplitConfig) -> None:
     number("n_superpixels", lo=1, integer=True, allow_none=True)
     number("compactness", lo=0, lo_open=True)
     number("pixel_grid_max_pixels", lo=0, integer=True)
+    number("sigma", lo=0)
     number("threshold_quantile", lo=0, hi=1, lo_open=True)
     if cfg.threshold_quantile >= 1:
         raise ValueError(f"threshold_quantile must be < 1; got {cfg.threshold_quantile!r}")

@@ -191,7 +191,7 @@ class SplitResult:
 # -- image preparation -----------------------------------------------------------------
 
 def _prepare(image, channel_axis):
-    """Image -> (features (..., C) in CIELAB / 100*gray, warnings, has_contrast)."""
+    """Image -> (values in [0, 1], features in CIELAB / 100*gray, warnings, has_contrast)."""
     arr = np.asarray(image)
     if arr.dtype == object or not (np.issubdtype(arr.dtype, np.number) or arr.dtype == bool):
         raise TypeError(f"image must be a numeric array; got dtype {arr.dtype}")
@@ -237,8 +237,9 @@ def _prepare(image, channel_axis):
 
         feats = rgb2lab(np.clip(x, 0.0, 1.0), channel_axis=-1)
     else:
-        feats = 100.0 * x[..., :1]
-    return np.ascontiguousarray(feats, dtype=np.float64), warnings, has_contrast
+        x = x[..., :1]
+        feats = 100.0 * x
+    return x, np.ascontiguousarray(feats, dtype=np.float64), warnings, has_contrast
 
 
 def _normalise_seeds(seeds, spatial_shape):
@@ -330,7 +331,7 @@ def _vertex_start(region_fg, region_vertex, merged, terminal, n_vertices):
 def _build(image, config, seeds, channel_axis, rng):
     seconds = {}
     t0 = time.perf_counter()
-    feats, warnings, has_contrast = _prepare(image, channel_axis)
+    values, feats, warnings, has_contrast = _prepare(image, channel_axis)
     spatial = feats.shape[:-1]
     seeds = _normalise_seeds(seeds, spatial)
     seconds["prepare"] = time.perf_counter() - t0
@@ -344,9 +345,10 @@ def _build(image, config, seeds, channel_axis, rng):
                           start=-np.ones(1, np.int8), warnings=warnings, seconds=seconds)
 
     t0 = time.perf_counter()
-    labels = oversegment(feats, n_superpixels=config.n_superpixels,
+    labels = oversegment(values, n_superpixels=config.n_superpixels,
                          compactness=config.compactness,
-                         pixel_grid_max_pixels=config.pixel_grid_max_pixels)
+                         pixel_grid_max_pixels=config.pixel_grid_max_pixels,
+                         sigma=config.sigma)
     seconds["superpixels"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()
@@ -535,6 +537,11 @@ def mask_to_sides(image_graph: ImageGraph, mask) -> tuple[np.ndarray, float]:
 
 # -- solving ---------------------------------------------------------------------------
 
+# Default move budget of search methods: enough to polish an SDP rounding on
+# superpixel graphs, deterministic (the budget, not the clock, ends the search).
+_MOVES_PER_VERTEX = 20
+
+
 def _choose_method(config):
     methods = available_methods()
     if config.method != "auto":
@@ -552,8 +559,9 @@ def _solve(ig: ImageGraph, config: SplitConfig, generator):
     if spec is not None:
         if "start" in spec.options and "start_from" not in options:
             options["start"] = ig.start
-        if "max_moves" in spec.options and config.max_moves is not None:
-            options["max_moves"] = config.max_moves
+        if "max_moves" in spec.options:
+            options["max_moves"] = (config.max_moves if config.max_moves is not None
+                                    else _MOVES_PER_VERTEX * ig.graph.n_vertices)
     result = solve_maxcut(ig.graph, method=name, time_limit=config.time_limit, rng=generator,
                           **options)
     # The colour-model rounds already reached a good split: keep the better of the two

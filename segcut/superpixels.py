@@ -11,14 +11,14 @@ import numpy as np
 __all__ = ["default_n_superpixels", "oversegment", "pixel_grid_labels"]
 
 _PIXELS_PER_SUPERPIXEL = 256
-_MIN_SUPERPIXELS = 64
+_MIN_SUPERPIXELS = 200
 _MAX_SUPERPIXELS = 6000
 
 
 def default_n_superpixels(n_pixels: int) -> int:
     """Number of superpixels chosen from the image size.
 
-    About one superpixel per 256 pixels (1024 for 512x512), at least 64 and at most
+    About one superpixel per 256 pixels (1024 for 512x512), at least 200 and at most
     6000, and never more than the number of pixels.
 
     Examples
@@ -26,7 +26,7 @@ def default_n_superpixels(n_pixels: int) -> int:
     >>> default_n_superpixels(512 * 512)
     1024
     >>> default_n_superpixels(100 * 100)
-    64
+    200
     """
     n = int(round(n_pixels / _PIXELS_PER_SUPERPIXEL))
     return int(min(max(n, _MIN_SUPERPIXELS), _MAX_SUPERPIXELS, max(int(n_pixels), 1)))
@@ -45,22 +45,25 @@ def pixel_grid_labels(spatial_shape) -> np.ndarray:
     return np.arange(int(np.prod(shape)), dtype=np.int64).reshape(shape)
 
 
-def oversegment(features, *, n_superpixels: int | None = None, compactness: float = 10.0,
-                pixel_grid_max_pixels: int = 4096) -> np.ndarray:
+def oversegment(image, *, n_superpixels: int | None = None, compactness: float = 10.0,
+                pixel_grid_max_pixels: int = 4096, sigma: float = 1.0) -> np.ndarray:
     """Split an image into superpixels (SLIC), or into pixels when it is small.
 
     Parameters
     ----------
-    features : (M, N, C) or (P, M, N, C) float ndarray
-        The image in a perceptual colour space (CIELAB for colour, ``100 * gray``
-        for one channel), channels last.
+    image : (M, N, C) or (P, M, N, C) float ndarray
+        RGB (C = 3) or gray (C = 1) values in [0, 1], channels last. SLIC works in
+        CIELAB (gray is taken as R = G = B) after scaling the image to [0, 1].
     n_superpixels : int, optional
         Target number of superpixels; by default :func:`default_n_superpixels`.
     compactness : float
-        SLIC compactness, in the units of ``features``.
+        SLIC compactness, in CIELAB units (10 is a usual value).
     pixel_grid_max_pixels : int
         Images with at most this many pixels are not over-segmented: every pixel
         becomes a region.
+    sigma : float
+        Width of the Gaussian smoothing SLIC applies first (pixels); it keeps pixel
+        noise from shattering the superpixels.
 
     Returns
     -------
@@ -77,21 +80,23 @@ def oversegment(features, *, n_superpixels: int | None = None, compactness: floa
     >>> img = np.zeros((4, 4, 1))
     >>> oversegment(img).shape
     (4, 4)
-    >>> lab = np.zeros((100, 100, 3)); lab[:, 50:, 0] = 80.0
-    >>> labels = oversegment(lab, n_superpixels=20)
+    >>> rgb = np.zeros((100, 100, 3)); rgb[:, 50:] = 0.8
+    >>> labels = oversegment(rgb, n_superpixels=20)
     >>> int(labels.min()), bool(np.all(np.isin(labels[:, :50], labels[:, 50:])))
     (0, False)
     """
     from skimage.segmentation import slic
 
-    features = np.asarray(features, dtype=np.float64)
-    spatial = features.shape[:-1]
+    image = np.asarray(image, dtype=np.float64)
+    spatial = image.shape[:-1]
     n_pixels = int(np.prod(spatial))
     if n_pixels <= pixel_grid_max_pixels:
         return pixel_grid_labels(spatial)
     n = default_n_superpixels(n_pixels) if n_superpixels is None else int(n_superpixels)
     n = min(n, n_pixels)
-    labels = slic(features, n_segments=n, compactness=float(compactness), channel_axis=-1,
-                  convert2lab=False, start_label=0, enforce_connectivity=True)
+    rgb = image if image.shape[-1] == 3 else np.repeat(image[..., :1], 3, axis=-1)
+    labels = slic(rgb, n_segments=n, compactness=float(compactness), channel_axis=-1,
+                  convert2lab=True, start_label=0, enforce_connectivity=True,
+                  sigma=float(sigma))
     _, labels = np.unique(labels, return_inverse=True)
     return labels.reshape(spatial).astype(np.int64)

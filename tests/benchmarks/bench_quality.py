@@ -1,0 +1,197 @@
+"""Two-region quality on photographs with reference masks, segcut against baselines.
+
+Runs, in one process and side by side on the same images: segcut with no prior and
+with the border and centre priors, and scikit-image baselines run the same way
+(Otsu threshold with the border rule, Chan-Vese, morphological Chan-Vese from a
+disk, random walker with the same border/centre seeds). Prints mean IoU, mean F
+(pixel F-measure = Dice), median seconds per image and, for segcut, the median
+certified gap.
+
+Usage (from the project root)::
+
+    python tests/benchmarks/bench_quality.py                    # ../shared/data/horses-dev
+    python tests/benchmarks/bench_quality.py FOLDER --limit 20 --no-baselines
+    python tests/benchmarks/bench_quality.py --variant "k5:n_neighbors=5" --variant "q90:threshold_quantile=0.9"
+
+FOLDER holds ``images/NAME.png`` and ``masks/NAME.png`` (0 background, non-zero
+foreground). Each ``--variant NAME:key=value,...`` adds segcut with the border and
+centre priors and those config changes.
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+from PIL import Image
+
+ROOT = Path(__file__).resolve().parents[2]
+DEFAULT_DATA = ROOT.parent / "shared" / "data" / "horses-dev"
+
+
+def score(pred, ref):
+    """IoU and pixel F-measure (Dice) of a predicted mask against a reference."""
+    try:
+        from segcut.scoring import compare_masks
+    except ImportError:
+        compare_masks = None
+    if compare_masks is not None:
+        m = compare_masks(pred, ref)
+        return m["iou"], m["dice"]
+    p, r = pred.astype(bool), ref.astype(bool)
+    tp = np.count_nonzero(p & r)
+    fp = np.count_nonzero(p & ~r)
+    fn = np.count_nonzero(~p & r)
+    iou = tp / (tp + fp + fn) if tp + fp + fn else 1.0
+    f = 2 * tp / (2 * tp + fp + fn) if tp + fp + fn else 1.0
+    return iou, f
+
+
+def frame_rule(mask):
+    """Border rule: the side with fewer pixels on the image frame is foreground."""
+    frame = np.zeros(mask.shape, dtype=bool)
+    frame[0, :] = frame[-1, :] = frame[:, 0] = frame[:, -1] = True
+    if np.count_nonzero(mask & frame) > np.count_nonzero(~mask & frame):
+        return ~mask
+    return mask
+
+
+def prior_seeds(shape, config):
+    """Seeds from the same border and centre prior maps segcut uses: 1 fg, 2 bg."""
+    from segcut.priors import prior_map
+
+    pmap, _ = prior_map(shape, config.replace(prior=("border", "center")))
+    seeds = np.zeros(shape, dtype=np.int32)
+    seeds[pmap > 0] = 1
+    seeds[pmap < 0] = 2
+    return seeds
+
+
+def baseline_otsu(image, config):
+    from skimage.color import rgb2gray
+    from skimage.filters import threshold_otsu
+
+    gray = rgb2gray(image)
+    return frame_rule(gray > threshold_otsu(gray))
+
+
+def baseline_chan_vese(image, config):
+    from skimage.color import rgb2gray
+    from skimage.segmentation import chan_vese
+
+    return frame_rule(chan_vese(rgb2gray(image), max_num_iter=200).astype(bool))
+
+
+def baseline_morph_chan_vese(image, config):
+    from skimage.color import rgb2gray
+    from skimage.segmentation import morphological_chan_vese
+
+    return morphological_chan_vese(rgb2gray(image), num_iter=100,
+                                   init_level_set="disk").astype(bool)
+
+
+def baseline_random_walker(image, config):
+    from skimage.segmentation import random_walker
+
+    seeds = prior_seeds(image.shape[:2], config)
+    labels = random_walker(image.astype(np.float64) / 255.0, seeds, beta=130, mode="cg_j",
+                           channel_axis=-1)
+    return labels == 1
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("folder", nargs="?", default=str(DEFAULT_DATA))
+    parser.add_argument("--limit", type=int, default=0, help="first N images only")
+    parser.add_argument("--no-baselines", action="store_true")
+    parser.add_argument("--no-default", action="store_true", help="skip the two default segcut rows")
+    parser.add_argument("--variant", action="append", default=[],
+                        help="NAME:key=value,... segcut (border,center) with config changes")
+    parser.add_argument("--method", default=None, help="max-cut method for every segcut row")
+    args = parser.parse_args(argv)
+
+    from segcut.config import SplitConfig
+    from segcut.pipeline import split
+
+    folder = Path(args.folder)
+    if not (folder / "images").is_dir():
+        print(f"skipped: no images/ folder in {folder} (the public data is not here)")
+        return 0
+    names = sorted(p.name for p in (folder / "images").glob("*.png"))
+    if args.limit:
+        names = names[:args.limit]
+    base = SplitConfig() if args.method is None else SplitConfig(method=args.method)
+
+    rows = []
+    if not args.no_default:
+        rows.append(("segcut, no prior", "segcut", base))
+        rows.append(("segcut, border,center", "segcut", base.replace(prior=("border", "center"))))
+    for spec in args.variant:
+        name, _, changes = spec.partition(":")
+        kw = {}
+        for item in filter(None, changes.split(",")):
+            key, _, value = item.partition("=")
+            kw[key.strip()] = _parse(value.strip())
+        prior = kw.pop("prior", ("border", "center"))
+        rows.append((f"segcut {name}", "segcut", base.replace(prior=prior, **kw)))
+    if not args.no_baselines:
+        rows += [("otsu + border rule", baseline_otsu, base),
+                 ("chan-vese + border rule", baseline_chan_vese, base),
+                 ("morph. chan-vese (disk)", baseline_morph_chan_vese, base),
+                 ("random walker (same seeds)", baseline_random_walker, base)]
+
+    images = []
+    for name in names:
+        image = np.asarray(Image.open(folder / "images" / name).convert("RGB"))
+        ref = np.asarray(Image.open(folder / "masks" / name).convert("L")) > 127
+        images.append((name, image, ref))
+
+    # warm the numba caches so the first image is not charged for compilation
+    split(images[0][1], base.replace(prior=("border", "center")))
+
+    print(f"{len(images)} images from {folder.name}; one process, same images for every row\n")
+    header = f"{'method':32s} {'IoU':>6s} {'F':>6s} {'median s':>9s} {'median gap':>11s} {'superpixels':>11s}"
+    print(header)
+    print("-" * len(header))
+    for label, runner, config in rows:
+        ious, fs, secs, gaps, nsp = [], [], [], [], []
+        for name, image, ref in images:
+            t0 = time.perf_counter()
+            if runner == "segcut":
+                result = split(image, config)
+                mask = result.mask
+                if result.gap is not None:
+                    gaps.append(result.gap)
+                nsp.append(result.n_superpixels)
+            else:
+                mask = runner(image, config)
+            secs.append(time.perf_counter() - t0)
+            iou, f = score(mask, ref)
+            ious.append(iou)
+            fs.append(f)
+        gap = f"{100 * statistics.median(gaps):10.2f}%" if gaps else f"{'-':>11s}"
+        sp = f"{statistics.median(nsp):11.0f}" if nsp else f"{'-':>11s}"
+        print(f"{label:32s} {np.mean(ious):6.3f} {np.mean(fs):6.3f} "
+              f"{statistics.median(secs):9.3f} {gap} {sp}", flush=True)
+    return 0
+
+
+def _parse(text):
+    for cast in (int, float):
+        try:
+            return cast(text)
+        except ValueError:
+            pass
+    if text in ("true", "false"):
+        return text == "true"
+    if "+" in text:
+        return tuple(text.split("+"))
+    return text
+
+
+if __name__ == "__main__":
+    sys.exit(main())

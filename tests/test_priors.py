@@ -1,0 +1,72 @@
+"""Priors, seeds and colour-model evidence."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from segcut.config import SplitConfig
+from segcut.priors import (
+    available_priors,
+    box_map,
+    colour_evidence,
+    get_prior,
+    prior_map,
+    register_prior,
+    seeded_regions,
+)
+
+
+def test_border_and_center_maps():
+    cfg = SplitConfig(border_width=0.1, center_fraction=0.5)
+    border = get_prior("border").pixel_map((40, 60), cfg)
+    assert np.all(border[:4] == -1) and np.all(border[:, -4:] == -1)
+    assert np.all(border[4:-4, 4:-4] == 0)
+    center = get_prior("center").pixel_map((40, 60), cfg)
+    assert center.sum() == 20 * 30 and center[20, 30] == 1
+
+
+def test_combined_map_and_box():
+    cfg = SplitConfig(prior=("border", "center"), box=(10, 5, 30, 25))
+    total, inside = prior_map((40, 50), cfg)
+    assert total.min() == -1 and total.max() == 1
+    assert inside.sum() == 20 * 20
+    assert prior_map((40, 50), SplitConfig()) == (None, None)
+
+
+def test_box_outside_image():
+    with pytest.raises(ValueError, match="does not overlap the image"):
+        box_map((10, 10), (20, 20, 30, 30))
+
+
+def test_stack_prior_applies_to_every_slice():
+    cfg = SplitConfig(center_fraction=0.5)
+    m = get_prior("center").pixel_map((3, 8, 8), cfg)
+    assert all(np.array_equal(m[0], m[k]) for k in range(3))
+
+
+def test_seeded_regions_conflict_warns():
+    labels = np.array([[0, 0, 1, 1]])
+    seeds = np.array([[1, 2, 2, 0]])
+    merged, warnings = seeded_regions(labels, seeds)
+    assert merged.tolist() == [1, -1]
+    assert "both foreground and background" in warnings[0]
+
+
+def test_colour_evidence_is_the_log_likelihood_ratio():
+    # naive-Bayes log-likelihood ratio with add-one smoothing (textbook formula)
+    counts = np.array([[3.0, 1.0, 0.0], [0.0, 2.0, 2.0]])
+    fg = np.array([1.0, 0.0])
+    bg = np.array([0.0, 1.0])
+    p_fg = (counts[0] + 1) / (counts[0] + 1).sum()
+    p_bg = (counts[1] + 1) / (counts[1] + 1).sum()
+    expected = counts @ np.log(p_fg / p_bg)
+    assert np.allclose(colour_evidence(counts, fg, bg), expected)
+
+
+def test_registry():
+    assert {"border", "center"} <= set(available_priors())
+    with pytest.raises(ValueError, match="unknown prior 'left'"):
+        get_prior("left")
+    register_prior("test_everything_fg", lambda shape, cfg: np.ones(shape), replace_existing=True)
+    assert get_prior("test_everything_fg").pixel_map((2, 2), SplitConfig()).sum() == 4
