@@ -261,7 +261,7 @@ def test_seed_folder_is_matched_by_relative_path_then_stem(scenes, serial_run, t
     (marks / "sub").mkdir(parents=True)
     canvas = np.zeros((SIZE, SIZE), np.uint8)
     canvas[:4, :] = 128  # the top rows are background (mid-gray)
-    canvas[44:52, 44:52] = 255  # the centre is foreground (white)
+    canvas[84:92, 84:92] = 255  # a patch of the ground is foreground (white): seeds overrule
     Image.fromarray(canvas).save(marks / "a.png")  # matches a.png by stem
     Image.fromarray(canvas).save(marks / "sub" / "c.png")  # matches sub/c.png by path
     Image.fromarray(canvas).save(marks / "d.png")  # matches sub/deeper/d.png by stem
