@@ -25,7 +25,8 @@ Guarantees
 - **Resumable.** An input is skipped when its current record is ``ok`` and has the
   same configuration hash, the same input content hash (SHA-256 of the file) and the
   same seed-file hash, and its mask and overlay exist. ``force=True`` redoes it.
-  Failed inputs are tried again.
+  Failed inputs are tried again. Only inputs that may be skipped are hashed before
+  the work starts; the others are hashed by the worker that reads them.
 - **One configuration per folder.** A folder whose ``run.toml`` or records carry a
   different configuration hash is refused with a :class:`~segcut.errors.ConfigError`
   naming the folder; nothing in it is changed.
@@ -39,11 +40,26 @@ Executors
 ---------
 ``jobs=1`` runs in this process; ``jobs > 1`` uses a
 :class:`concurrent.futures.ProcessPoolExecutor` (``forkserver`` start method where
-available, else ``spawn``); ``scheduler="tcp://host:8786"`` submits the same tasks to a
-running Dask distributed cluster (its workers must see the input and output paths,
-for example on a shared file system); ``dask_local=N`` starts a local Dask cluster of
-``N`` single-threaded worker processes. At most two tasks per worker are in flight,
-so memory stays bounded however many inputs there are.
+available, else ``spawn``; each worker loads the numba kernels once when it starts);
+``dask_local=N`` starts a local Dask cluster of ``N`` single-threaded worker processes;
+``scheduler="tcp://host:8786"`` submits the same tasks to a running Dask distributed
+cluster. At most two tasks per worker are in flight, so memory stays bounded however
+many inputs there are; each worker holds one image at a time.
+
+A real cluster: start ``dask scheduler`` on one machine and
+``dask worker tcp://HOST:8786 --nworkers N --nthreads 1`` on each of the others (one
+thread per worker process: the numba kernels and scikit-image hold the GIL for long
+stretches), with the same segcut version installed everywhere and the input and
+output folders at the same paths on every machine (a shared file system): workers
+read the images and write masks and overlays themselves; only this process writes
+``records.jsonl``, ``summary.csv`` and the report.
+
+Memory
+------
+Peak memory is set by the largest image a worker holds. Measured
+(``tests/benchmarks/bench_batch.py --memory``): one 6000x4000 RGB JPEG peaks at about
+4.1 GiB resident for the whole ``segcut split --jobs 1`` process; 512x512 images need a
+few hundred MiB per worker. With ``jobs=N`` plan for N times the per-image peak.
 """
 
 from __future__ import annotations
@@ -714,6 +730,16 @@ def write_report(out_dir, *, title: str | None = None, thumbnail_size: int = _TH
     ------
     InputError
         When ``out_dir`` holds no ``records.jsonl``.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     _ = (pathlib.Path(d) / "records.jsonl").write_text(
+    ...         '{"input": "x.png", "status": "failed", "error": "x.png: empty file"}\\n')
+    ...     page = write_report(d, title="demo").read_text(encoding="utf-8")
+    >>> "1 images: 0 split, 1 failed, 1 flagged" in page
+    True
     """
     from .report import render_report
 
