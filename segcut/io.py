@@ -70,6 +70,7 @@ import json
 import math
 import os
 import secrets
+import stat
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -255,6 +256,11 @@ def _open_check(path) -> bytes:
     """The first bytes of ``path``; one-line errors for missing, empty or unreadable files."""
     p = Path(path)
     try:
+        info = p.stat()
+        if stat.S_ISDIR(info.st_mode):
+            raise IsADirectoryError
+        if not stat.S_ISREG(info.st_mode):  # a pipe or device would block or never end
+            raise InputError("not a regular file", path=path)
         with open(p, "rb") as f:
             head = f.read(32)
     except FileNotFoundError:

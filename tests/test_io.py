@@ -400,6 +400,13 @@ def test_missing_file_and_folder(tmp_path):
         read_image(tmp_path)
 
 
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="no named pipes on this system")
+def test_named_pipe_is_refused_without_blocking(tmp_path):
+    os.mkfifo(tmp_path / "pipe.png")
+    with pytest.raises(InputError, match=r"pipe\.png: not a regular file"):
+        read_image(tmp_path / "pipe.png")
+
+
 def test_input_error_is_segcut_error_and_pickles(tmp_path):
     import pickle
 
