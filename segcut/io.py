@@ -30,7 +30,8 @@ Rules, in one place:
 - **Orientation**: the EXIF orientation tag (JPEG, and any other file that carries
   one) is applied, so the array is the picture as a person sees it.
 - **Alpha** is dropped, not composited: each pixel keeps its stored colour. When some
-  pixels are not fully opaque a note is added to :attr:`ImageData.warnings`.
+  pixels are not fully opaque a note is added to :attr:`ImageData.warnings`; the
+  alpha values themselves stay available as :attr:`ImageData.alpha`.
 - **Pixel limit**: images with more than :data:`MAX_PIXELS` pixels (all pages of a
   stack together) are refused before they are decoded, as a guard against
   decompression bombs. Pass ``max_pixels=`` to change it.
@@ -342,6 +343,8 @@ def _read_with_pillow(path, max_pixels: int, head: bytes, *, tiff_fallback=False
                     img.load()  # force the full decode: truncated data fails here
                     img = ImageOps.exif_transpose(img)
                     array, channel_axis = _pillow_to_array(img, notes, extras)
+                if array.dtype.kind == "f":
+                    array = _normalise_dtype(array, path, notes, colour=channel_axis is not None)
             except InputError:
                 raise
             except MemoryError:
@@ -510,7 +513,7 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
                 f"unsupported TIFF with {n_channels} channels per pixel (1 to 4 are read)",
                 path=path,
             )
-    array = _normalise_dtype(array, path, notes)
+    array = _normalise_dtype(array, path, notes, colour=channel_axis is not None)
     return ImageData(np.ascontiguousarray(array), channel_axis, _as_str(path), "TIFF", mode,
                      tuple(notes), alpha)
 
@@ -563,7 +566,7 @@ def _cmyk_to_rgb(array: np.ndarray) -> np.ndarray:
     return rgb
 
 
-def _normalise_dtype(array: np.ndarray, path, notes: list) -> np.ndarray:
+def _normalise_dtype(array: np.ndarray, path, notes: list, *, colour: bool) -> np.ndarray:
     """Integers to uint8/uint16 (or float64), floats to float32/64, non-finite values handled."""
     if array.dtype.kind in "uib":
         return _integer_to_supported(array)
@@ -581,9 +584,8 @@ def _normalise_dtype(array: np.ndarray, path, notes: list) -> np.ndarray:
         raise InputError("image has no finite value (all NaN or infinite)", path=path)
     array = array.copy()
     bad = ~finite
-    if array.ndim >= 3 and bad.ndim == array.ndim and array.shape[-1] in (3,):
-        channels = range(array.shape[-1])
-        for c in channels:
+    if colour:
+        for c in range(array.shape[-1]):
             plane, ok = array[..., c], finite[..., c]
             fill = np.median(plane[ok]) if ok.any() else np.median(array[finite])
             plane[~ok] = fill

@@ -280,6 +280,23 @@ def test_partly_nan_float_is_filled_with_median(tmp_path):
     assert len(data.warnings) == 1 and data.warnings[0].startswith("2 NaN or infinite values")
 
 
+def test_nan_filled_per_channel_in_colour_and_per_image_in_gray_stacks(tmp_path):
+    colour = np.zeros((2, 3, 3), np.float32)
+    colour[..., 0], colour[..., 1], colour[..., 2] = 1.0, 2.0, 3.0
+    colour[0, 0] = np.nan
+    tifffile.imwrite(tmp_path / "c.tif", colour, photometric="rgb")
+    assert read_image(tmp_path / "c.tif").array[0, 0].tolist() == [1.0, 2.0, 3.0]
+    stack = np.arange(2 * 4 * 3, dtype=np.float64).reshape(2, 4, 3)  # width 3, not colour
+    stack[0, 0, 0] = np.nan
+    tifffile.imwrite(tmp_path / "s.tif", stack, photometric="minisblack")
+    data = read_image(tmp_path / "s.tif")
+    assert data.channel_axis is None
+    assert data.array[0, 0, 0] == np.median(np.arange(1.0, 24.0))
+    Image.fromarray(np.array([[np.nan, 1.0], [2.0, 3.0]], np.float32)).save(tmp_path / "f.tif")
+    pillow_float = read_image(tmp_path / "f.tif")
+    assert pillow_float.array.tolist() == [[2.0, 1.0], [2.0, 3.0]]
+
+
 def test_flat_image_is_not_an_error(tmp_path):
     Image.fromarray(np.full((8, 8), 77, np.uint8)).save(tmp_path / "flat.png")
     assert read_image(tmp_path / "flat.png").array.std() == 0
