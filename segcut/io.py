@@ -615,9 +615,9 @@ def read_mask(path, *, threshold: float | None = None, max_pixels: int = MAX_PIX
         A mask image (any format :func:`read_image` reads; multi-page TIFF gives a
         3-D mask). Colour masks are reduced to their largest channel per pixel.
     threshold : float, optional
-        Foreground is ``value > threshold``. By default: a mask with at most two
-        values, one of them 0 (segcut's own 0 / 255 masks, 0 / 1 label images), has
-        foreground wherever it is not 0; any other mask (a JPEG reference with
+        Foreground is ``value > threshold``. By default: a mask with a single value,
+        or with two values the smaller of which is 0 (segcut's own 0 / 255 masks,
+        0 / 1 label images), has foreground wherever it is not 0; any other mask (a JPEG reference with
         compression noise, a soft mask) is cut at half its type's full range: 127.5
         for 8-bit, 32767.5 for 16-bit, and half of ``max(1, largest value)`` for
         float masks.
@@ -649,7 +649,7 @@ def read_mask(path, *, threshold: float | None = None, max_pixels: int = MAX_PIX
             raise ValueError(f"threshold must be a finite number, got {threshold!r}")
         return np.ascontiguousarray(values > threshold)
     levels = np.unique(values)
-    if levels.size <= 2 and levels[0] == 0:
+    if levels.size == 1 or (levels.size == 2 and levels[0] == 0):
         return np.ascontiguousarray(values != 0)
     if values.dtype.kind in "ui":
         cut = np.iinfo(values.dtype).max / 2.0
@@ -748,7 +748,8 @@ def atomic_path(path) -> Iterator[Path]:
     """
     target = Path(path)
     folder = target.parent
-    tmp = folder / f".{target.stem}.{os.getpid()}-{secrets.token_hex(4)}.tmp{target.suffix}"
+    stem = target.stem[:80]  # long names stay within the file system's name limit
+    tmp = folder / f".{stem}.{os.getpid()}-{secrets.token_hex(4)}.tmp{target.suffix}"
     with _cannot_write(target):
         folder.mkdir(parents=True, exist_ok=True)
         # created empty with the usual permissions (0o666 minus the umask), exclusively

@@ -456,6 +456,8 @@ def test_read_mask_own_and_label_masks(tmp_path):
     np.testing.assert_array_equal(read_mask(tmp_path / "labels.png"), truth)
     Image.fromarray(np.zeros((3, 3), np.uint8)).save(tmp_path / "none.png")
     assert not read_mask(tmp_path / "none.png").any()
+    Image.fromarray(np.ones((3, 3), np.uint8)).save(tmp_path / "all_label.png")
+    assert read_mask(tmp_path / "all_label.png").all()  # a 0 / 1 mask that is all 1
 
 
 def test_read_mask_jpeg_reference_cut_at_half_range(tmp_path):
@@ -697,6 +699,12 @@ def test_unwritable_target_is_one_line(tmp_path):
         write_mask(np.ones((2, 2), bool), blocker / "a.png")
     with pytest.raises(SegcutError, match=r"records\.jsonl: cannot write the file"):
         append_line(blocker / "records.jsonl", "{}")
+
+
+def test_atomic_write_of_a_name_near_the_length_limit(tmp_path):
+    name = "x" * 240 + ".png"  # 244 bytes: within the usual 255-byte limit
+    write_mask(np.ones((2, 2), bool), tmp_path / name)
+    assert os.listdir(tmp_path) == [name]
 
 
 def test_atomic_path_permissions_follow_umask(tmp_path):
