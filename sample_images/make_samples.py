@@ -31,9 +31,11 @@ import numpy as np
 from scipy import ndimage as ndi
 
 HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE.parent))  # run from a source checkout without installing
-
-from segcut.io import write_image, write_mask, write_text_atomic  # noqa: E402
+try:
+    from segcut.io import write_image, write_mask, write_text_atomic
+except ImportError:  # run from a source checkout without installing
+    sys.path.insert(0, str(HERE.parent))
+    from segcut.io import write_image, write_mask, write_text_atomic
 
 SEED = 20261201
 
