@@ -235,6 +235,7 @@ def test_scaling_weights_scales_the_relaxation(n, seed, scale):
 @settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(n=st.integers(3, 14), seed=st.integers(0, 2**16))
 def test_relabelling_vertices_keeps_the_relaxation(n, seed):
+    # Common knowledge: the SDP value does not depend on the names of the vertices.
     graph = random_graph(n, degree=4, seed=seed)
     perm = np.random.default_rng(seed).permutation(n)
     i, j, w = graph.edges()

@@ -58,7 +58,9 @@ def warm_up():
 
 
 def table(rows, header):
-    widths = [max(len(str(h)), *(len(str(r[k])) for r in rows)) for k, h in enumerate(header)]
+    if not rows:
+        return
+    widths = [max([len(str(h))] + [len(str(r[k])) for r in rows]) for k, h in enumerate(header)]
     line = "| " + " | ".join(str(h).ljust(w) for h, w in zip(header, widths)) + " |"
     print(line)
     print("|" + "|".join("-" * (w + 2) for w in widths) + "|")
