@@ -25,7 +25,7 @@ __all__ = ["MAX_EXACT_VERTICES", "exact_maxcut"]
 #: Largest graph the exact method accepts.
 MAX_EXACT_VERTICES = 30
 
-_NODE_CHUNK = 2_000_000
+_NODE_CHUNK = 200_000
 
 
 def exact_maxcut(graph: SignedGraph, *, time_limit: float | None = None, rng=None):
@@ -36,7 +36,7 @@ def exact_maxcut(graph: SignedGraph, *, time_limit: float | None = None, rng=Non
     graph : SignedGraph
         At most :data:`MAX_EXACT_VERTICES` vertices.
     time_limit : float, optional
-        Give up after about this many seconds (checked every 2 million nodes).
+        Give up after about this many seconds (checked every 200,000 nodes).
     rng : None, int or numpy.random.Generator
         Seeds the search for the first incumbent; the optimum value does not depend on it.
 
