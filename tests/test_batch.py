@@ -247,11 +247,17 @@ def test_torn_record_and_stale_temporary_are_cleaned(scenes, serial_run, tmp_pat
     good = (out / "records.jsonl").read_bytes()
     with open(out / "records.jsonl", "ab") as fh:
         fh.write(b'{"input": "a.png", "status": "ok", "val')  # a kill mid-line
-    stale = out / "masks" / "sub" / ".c.4242-0badf00d.tmp.png"
-    stale.write_bytes(b"\x89PNG half")
+    # a writer killed inside segcut.io.atomic_path leaves its temporary file behind
+    kill_mid_write = ("import os, sys; from segcut.io import atomic_path; "
+                      "tmp = atomic_path(sys.argv[1]).__enter__(); tmp.write_bytes(b'half'); "
+                      "os._exit(0)")
+    subprocess.run([sys.executable, "-c", kill_mid_write, str(out / "masks" / "sub" / "c.png")],
+                   check=True)
+    stale = [p for p in (out / "masks" / "sub").iterdir() if p.name.startswith(".")]
+    assert len(stale) == 1
     summary = run_batch([folder], out, SplitConfig(), jobs=1, report=False)
     assert summary.resumed == 4
-    assert not stale.exists()
+    assert not stale[0].exists()
     assert (out / "records.jsonl").read_bytes() == good
 
 
