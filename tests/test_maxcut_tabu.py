@@ -185,3 +185,20 @@ def test_flipping_all_sides_keeps_the_value(seed, n):
     g = random_signed_graph(n, 3, seed, integer=False)
     result = solve_maxcut(g, rng=seed, max_moves=500, start_from="random")
     assert cut_value(g, -result.sides) == pytest.approx(result.value, abs=1e-12)
+
+
+@pytest.mark.parametrize("selection", ["buckets", "scan", "trees"])
+def test_chunking_does_not_change_the_search(selection, monkeypatch):
+    # the kernel keeps all its state in arrays: stopping every 1000 moves to look at
+    # the clock must give exactly the moves of long uninterrupted chunks
+    import segcut.maxcut.tabu as tabu_module
+
+    g = random_signed_graph(300, 5, seed=9, integer=selection == "buckets")
+    start = np.random.default_rng(1).choice(np.array([-1, 1], dtype=np.int8), size=300)
+    runs = []
+    for chunk_seconds in (1e-12, 1e3):
+        monkeypatch.setattr(tabu_module, "_CHUNK_SECONDS", chunk_seconds)
+        runs.append(tabu_search(g, start, rng=2, max_moves=40_000, selection=selection))
+    (a, info_a), (b, info_b) = runs
+    assert np.array_equal(a, b)
+    assert info_a["perturbations"] == info_b["perturbations"] > 0
