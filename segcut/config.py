@@ -41,6 +41,7 @@ SECTIONS = {
     "n_colour_words": "appearance",
     "model_rounds": "appearance",
     "model_strength": "appearance",
+    "start_clusters": "appearance",
     "method": "solver",
     "time_limit": "solver",
     "max_moves": "solver",
@@ -57,8 +58,9 @@ class SplitConfig:
     Parameters
     ----------
     n_superpixels : int or None
-        Target number of SLIC superpixels; None chooses it from the image size (about
-        one per 256 pixels, at least 200 and at most 6000; ~1000 for 512x512).
+        Target number of SLIC superpixels; None chooses it from the image size (twice
+        the square root of the pixel count, at least 100 and at most 6000; 1024 for
+        512x512).
     compactness : float
         SLIC compactness (colour against space, in CIELAB units).
     pixel_grid_max_pixels : int
@@ -99,6 +101,10 @@ class SplitConfig:
         Times the colour models are re-estimated from the current split.
     model_strength : float
         Multiplier of the colour-model terminal edges.
+    start_clusters : int
+        With no prior and no seeds, the region colours are grouped in this many
+        clusters and the clusters rarer on the image frame than in the image start
+        as foreground (0 or 1: a 2-means split oriented by the border rule).
     method : str
         Max-cut method; ``"auto"`` takes tabu search warm-started from the SDP
         relaxation when available, otherwise the best registered method.
@@ -128,22 +134,23 @@ class SplitConfig:
     pixel_grid_max_pixels: int = 1024
     sigma: float = 1.0
     affinity: str = "colour"
-    threshold_quantile: float = 0.85
+    threshold_quantile: float = 0.95
     smoothness: float = 4.0
     n_neighbors: int = 0
     prior: tuple = ()
     box: tuple | None = None
     prior_strength: float = 2.0
-    border_width: float = 0.05
+    border_width: float = 0.08
     center_fraction: float = 0.2
     colour_model: bool = True
     n_colour_words: int = 24
     model_rounds: int = 3
     model_strength: float = 1.0
+    start_clusters: int = 4
     method: str = "auto"
     time_limit: float | None = None
     max_moves: int | None = None
-    fill_holes: bool = True
+    fill_holes: bool = False
     min_region_size: int = 0
     seed: int = 0
 
@@ -324,6 +331,7 @@ def _validate(cfg: SplitConfig) -> None:
     number("n_colour_words", lo=2, integer=True)
     number("model_rounds", lo=0, integer=True)
     number("model_strength", lo=0)
+    number("start_clusters", lo=0, integer=True)
     number("time_limit", lo=0, lo_open=True, allow_none=True)
     number("max_moves", lo=1, integer=True, allow_none=True)
     number("min_region_size", lo=0, integer=True)

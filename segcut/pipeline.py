@@ -304,6 +304,29 @@ def _two_means(colours, weights):
     return np.argmin(d, axis=1)
 
 
+def _frame_shy_colours(regions, n_clusters):
+    """No-prior start: the colour clusters that are rarer on the frame than in the image.
+
+    The region colours are grouped in ``n_clusters`` colour words; a cluster whose share
+    of the frame pixels is below half its share of the image area is taken as
+    foreground. None when no cluster (or every cluster) qualifies.
+    """
+    from .regions import learn_colour_words
+
+    if n_clusters < 2 or regions.frame.sum() == 0:
+        return None
+    centres = learn_colour_words(regions.mean, regions.area, n_clusters)
+    d = ((regions.mean[:, None, :] - centres[None]) ** 2).sum(-1)
+    cluster = np.argmin(d, axis=1)
+    k = centres.shape[0]
+    area = np.bincount(cluster, weights=regions.area, minlength=k) / regions.area.sum()
+    frame = np.bincount(cluster, weights=regions.frame, minlength=k) / regions.frame.sum()
+    shy = frame < 0.5 * area
+    if not shy.any() or shy.all():
+        return None
+    return shy[cluster]
+
+
 def _border_rule(region_fg, frame):
     """True when the foreground touches the frame more than the background: flip it."""
     return float(frame[region_fg].sum()) > float(frame[~region_fg].sum())
@@ -400,9 +423,11 @@ def _build(image, config, seeds, channel_axis, rng):
     orientation = "terminal" if informed else "border_rule"
     with_terminal = informed or config.colour_model
     if not informed and config.colour_model:
-        group = _two_means(regions.mean, regions.area).astype(bool)
-        if _border_rule(group, regions.frame):
-            group = ~group
+        group = _frame_shy_colours(regions, config.start_clusters)
+        if group is None:
+            group = _two_means(regions.mean, regions.area).astype(bool)
+            if _border_rule(group, regions.frame):
+                group = ~group
         fg_w, bg_w = group.astype(float), (~group).astype(float)
 
     counts = word_histograms(labels, regions.words, n, regions.centres.shape[0])
@@ -542,34 +567,68 @@ def mask_to_sides(image_graph: ImageGraph, mask) -> tuple[np.ndarray, float]:
 _MOVES_PER_VERTEX = 20
 
 
-def _choose_method(config):
-    methods = available_methods()
-    if config.method != "auto":
-        return config.method, {}
-    if "tabu" in methods and "start_from" in methods["tabu"].options:
-        return "tabu", {"start_from": "sdp"}
-    if "sdp" in methods:
-        return "sdp", {}
-    return "local", {}
+# Relative accuracy of the SDP relaxation behind the certificate of method "auto".
+_SDP_TOL = 1e-3
 
 
 def _solve(ig: ImageGraph, config: SplitConfig, generator):
-    name, options = _choose_method(config)
-    spec = available_methods().get(name)
-    if spec is not None:
-        if "start" in spec.options and "start_from" not in options:
-            options["start"] = ig.start
-        if "max_moves" in spec.options:
-            options["max_moves"] = (config.max_moves if config.max_moves is not None
-                                    else _MOVES_PER_VERTEX * ig.graph.n_vertices)
-    result = solve_maxcut(ig.graph, method=name, time_limit=config.time_limit, rng=generator,
-                          **options)
-    # The colour-model rounds already reached a good split: keep the better of the two
-    # (the bound holds for the graph, whichever split is reported).
-    sides, value = _local_best(ig.graph, [result.sides, ig.start], generator)
-    if result.value >= value:
-        sides, value = result.sides, result.value
-    return name, sides, value, result.upper_bound
+    """Solve the image graph; returns (method, sides, value, upper_bound).
+
+    ``method="auto"``: the SDP relaxation gives the certified bound (when the "sdp"
+    method is installed), its Goemans-Williamson rounding one candidate split; tabu
+    search (or a 1-flip descent) from the colour-model rounds' split and from the
+    rounding, with a deterministic move budget, gives the answer. Any other method
+    name goes to :func:`~segcut.maxcut.solve_maxcut` as it is.
+    """
+    methods = available_methods()
+    graph = ig.graph
+    budget = (config.max_moves if config.max_moves is not None
+              else _MOVES_PER_VERTEX * graph.n_vertices)
+    if config.method != "auto":
+        spec = methods.get(config.method)
+        options = {}
+        if spec is not None:
+            if "start" in spec.options:
+                options["start"] = ig.start
+            if "max_moves" in spec.options:
+                options["max_moves"] = budget
+        result = solve_maxcut(graph, method=config.method, time_limit=config.time_limit,
+                              rng=generator, **options)
+        # keep the better of the solver's split and the rounds' split (polished);
+        # the bound holds for the graph whichever split is reported
+        sides, value = _local_best(graph, [result.sides, ig.start], generator)
+        if result.value >= value:
+            sides, value = result.sides, result.value
+        return config.method, sides, value, result.upper_bound
+
+    starts = [ig.start]
+    bound = None
+    name = "local"
+    if "sdp" in methods and graph.n_edges > 0:
+        from .maxcut.sdp import round_hyperplanes, solve_sdp_relaxation
+
+        relaxation = solve_sdp_relaxation(graph, tol=_SDP_TOL, time_limit=config.time_limit,
+                                          rng=generator)
+        if relaxation.certified:
+            bound = float(relaxation.upper_bound)
+        starts.append(round_hyperplanes(graph, relaxation.factor, n_hyperplanes=_HYPERPLANES,
+                                        rng=generator))
+        name = "sdp"
+    if "tabu" in methods:
+        best, best_value = None, -np.inf
+        for start in starts:
+            result = solve_maxcut(graph, method="tabu", rng=generator, start=start,
+                                  max_moves=budget)
+            if best is None or result.value > best_value:
+                best, best_value = result.sides, result.value
+        name = "tabu+" + name if name == "sdp" else "tabu"
+        return name, best, best_value, bound
+    sides, value = _local_best(graph, starts, generator)
+    return name, sides, value, bound
+
+
+# Random hyperplanes of the Goemans-Williamson rounding in method "auto".
+_HYPERPLANES = 20
 
 
 def _clean(mask, config):
@@ -622,9 +681,16 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     With spins ``x_i`` in {-1, +1}, the cut value is
     ``sum_{i<j} w_ij (1 - x_i x_j) / 2``. Neighbour weights come from the affinity
     model (:mod:`segcut.affinity`), terminal weights from priors and colour models
-    (:mod:`segcut.priors`). With no prior and no seeds, the colour models start
-    from a 2-means split of the region colours and the foreground is the side with
-    fewer pixels on the image frame (orientation ``"border_rule"``).
+    (:mod:`segcut.priors`). With no prior and no seeds the colour models start
+    from the colour clusters that are rarer on the image frame than in the image
+    (``config.start_clusters`` clusters of the region colours; a 2-means split when
+    none qualifies), and after each round the side with fewer pixels on the frame is
+    foreground (orientation ``"border_rule"``).
+
+    ``method="auto"`` certifies the answer with the SDP relaxation (relative
+    accuracy 1e-3) and searches with tabu search from the split of the colour-model
+    rounds and from a Goemans-Williamson rounding, with a move budget of 20 moves
+    per vertex (deterministic).
 
     Examples
     --------

@@ -10,16 +10,16 @@ import numpy as np
 
 __all__ = ["default_n_superpixels", "oversegment", "pixel_grid_labels"]
 
-_PIXELS_PER_SUPERPIXEL = 256
-_MIN_SUPERPIXELS = 200
+_MIN_SUPERPIXELS = 100
 _MAX_SUPERPIXELS = 6000
 
 
 def default_n_superpixels(n_pixels: int) -> int:
     """Number of superpixels chosen from the image size.
 
-    About one superpixel per 256 pixels (1024 for 512x512), at least 200 and at most
-    6000, and never more than the number of pixels.
+    Twice the square root of the pixel count (1024 for 512x512, 447 for 200x250):
+    larger images get more superpixels, each of them larger too. At least 100, at
+    most 6000, and never more than the number of pixels.
 
     Examples
     --------
@@ -27,8 +27,10 @@ def default_n_superpixels(n_pixels: int) -> int:
     1024
     >>> default_n_superpixels(100 * 100)
     200
+    >>> default_n_superpixels(50 * 50)
+    100
     """
-    n = int(round(n_pixels / _PIXELS_PER_SUPERPIXEL))
+    n = int(round(2.0 * np.sqrt(n_pixels)))
     return int(min(max(n, _MIN_SUPERPIXELS), _MAX_SUPERPIXELS, max(int(n_pixels), 1)))
 
 

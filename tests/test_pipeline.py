@@ -154,7 +154,7 @@ def test_flips_and_rotations_transform_the_mask(transform):
     image, _ = _scene("noise", 0, size=192)
     base = split(image, SCENE_CONFIG.replace(method="local")).mask
     moved = split(transform(image), SCENE_CONFIG.replace(method="local")).mask
-    assert _iou(moved, transform(base)) >= 0.92
+    assert _iou(moved, transform(base)) >= 0.9
 
 
 def test_dtypes_give_the_same_mask():

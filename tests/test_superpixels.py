@@ -17,6 +17,7 @@ def test_default_count_follows_image_size():
     assert default_n_superpixels(10) == 10
     assert default_n_superpixels(100 * 100) == 200
     assert default_n_superpixels(10**9) == 6000
+    assert default_n_superpixels(250 * 200) == 447
 
 
 def test_small_images_use_the_pixel_grid():

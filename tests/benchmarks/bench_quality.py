@@ -12,6 +12,8 @@ Usage (from the project root)::
     python tests/benchmarks/bench_quality.py                    # ../shared/data/horses-dev
     python tests/benchmarks/bench_quality.py FOLDER --limit 20 --no-baselines
     python tests/benchmarks/bench_quality.py --variant "k5:n_neighbors=5" --variant "q90:threshold_quantile=0.9"
+    OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 NUMBA_NUM_THREADS=1 \
+        python tests/benchmarks/bench_quality.py --no-baselines --no-default --speed 10
 
 FOLDER holds ``images/NAME.png`` and ``masks/NAME.png`` (0 background, non-zero
 foreground). Each ``--variant NAME:key=value,...`` adds segcut with the border and
@@ -112,6 +114,9 @@ def main(argv=None) -> int:
     parser.add_argument("--variant", action="append", default=[],
                         help="NAME:key=value,... segcut (border,center) with config changes")
     parser.add_argument("--method", default=None, help="max-cut method for every segcut row")
+    parser.add_argument("--speed", type=int, default=0, metavar="N",
+                        help="also time N photographs resized to 512x512, end to end "
+                             "(PNG read, split with certificate, PNG write)")
     args = parser.parse_args(argv)
 
     from segcut.config import SplitConfig
@@ -177,6 +182,37 @@ def main(argv=None) -> int:
         sp = f"{statistics.median(nsp):11.0f}" if nsp else f"{'-':>11s}"
         print(f"{label:32s} {np.mean(ious):6.3f} {np.mean(fs):6.3f} "
               f"{statistics.median(secs):9.3f} {gap} {sp}", flush=True)
+    if args.speed:
+        speed(images[:args.speed], base.replace(prior=("border", "center")))
+    return 0
+
+
+def speed(images, config):
+    """Median seconds for a 512x512 RGB photograph: read PNG, split, write PNG mask."""
+    import io
+    import tempfile
+
+    from segcut.pipeline import split
+
+    stages = {}
+    totals = []
+    with tempfile.TemporaryDirectory() as tmp:
+        for name, image, _ in images:
+            big = np.asarray(Image.fromarray(image).resize((512, 512), Image.LANCZOS))
+            buf = io.BytesIO()
+            Image.fromarray(big).save(buf, format="PNG")
+            data = buf.getvalue()
+            t0 = time.perf_counter()
+            pixels = np.asarray(Image.open(io.BytesIO(data)).convert("RGB"))
+            result = split(pixels, config)
+            Image.fromarray(result.mask.astype(np.uint8) * 255).save(Path(tmp) / name)
+            totals.append(time.perf_counter() - t0)
+            for key, value in result.seconds.items():
+                stages.setdefault(key, []).append(value)
+    print(f"\n512x512 RGB end to end, {len(images)} photographs, prior border,center, "
+          f"method {config.method}:")
+    print(f"  median total {statistics.median(totals):.3f} s; per stage (median): "
+          + ", ".join(f"{k} {statistics.median(v):.3f}" for k, v in stages.items()))
     return 0
 
 
