@@ -179,6 +179,27 @@ def test_certify_dual_shifts_an_infeasible_guess(dense_limit):
     assert lam >= -1e-12 * norm
 
 
+@pytest.mark.parametrize("dense_limit", [0, 100])
+@pytest.mark.parametrize("delta", [1e-9, 1e-6, 1e-3])
+def test_certificate_rejects_a_slightly_infeasible_dual(delta, dense_limit):
+    # Common knowledge: for unit K_n, Diag(y) - L/4 with y_i = n/4 - delta equals
+    # J/4 - delta I, whose eigenvalues are -delta (n-1 times) and n/4 - delta. The
+    # unshifted y is infeasible by exactly delta; the certificate must shift by at
+    # least delta, and the SDP value n^2/4 must stay below the bound.
+    n = 12
+    graph = complete(n)
+    y = np.full(n, n / 4 - delta)
+    z, bound, certified = certify_dual(graph, y, target_shift=0.0, dense_limit=dense_limit)
+    assert certified
+    assert np.all(z - y >= delta)
+    assert bound >= n * n / 4
+    assert bound <= n * n / 4 + n * 8 * delta + 1e-9
+    # a feasible y (delta < 0) is confirmed with only the round-off margin added
+    z, bound, certified = certify_dual(graph, np.full(n, n / 4 + delta), dense_limit=dense_limit)
+    assert certified
+    assert bound == pytest.approx(n * n / 4 + n * delta, rel=1e-12)
+
+
 def test_unconfirmed_bound_is_never_reported_as_certified(monkeypatch):
     def always_fails(*args, **kwargs):
         raise sdp.sla.LinAlgError("not positive definite")
