@@ -356,7 +356,7 @@ def certify_dual(graph, dual, *, target_shift: float = 0.0,
 
 
 def _certify(graph: SignedGraph, y: np.ndarray, *, target_shift: float,
-             dense_limit: int) -> _Certificate:
+             dense_limit: int, tighten: int = 3) -> _Certificate:
     """Ladder of factorisations: the smallest confirmed shift near ``target_shift``."""
     start = time.perf_counter()
     n = graph.n_vertices
@@ -386,7 +386,7 @@ def _certify(graph: SignedGraph, y: np.ndarray, *, target_shift: float,
     shift = min(max(target_shift, 0.0), gershgorin)
     best = attempt(shift)
     if best is not None:
-        for _ in range(3):
+        for _ in range(tighten):
             if shift <= 0.0:
                 break
             shift /= 2.0
@@ -527,18 +527,20 @@ def solve_sdp_relaxation(graph, *, tol: float = 1e-4, max_sweeps: int = 20000,
     next_check = tol ** 2
     sweeps = 0
     status = None
+    relative_change = math.inf
 
     def primal_of(obj):
         return (twice_total - obj) / 4.0
 
-    def check():
+    def check(expected_gap=0.0, tighten=3):
         nonlocal best, certified_at, bound_seconds, last_check_seconds, objective
         objective = _sdp_kernels.factor_objective(indptr, indices, weights, factor)
         y = np.empty(n, dtype=np.float64)
         _sdp_kernels.dual_estimate(indptr, indices, weights, factor, degrees, y)
-        # a shift that meets half the tolerance: n s <= tol * bound / 2
-        target = 0.5 * tol * max(abs(primal_of(objective)), floor) / max(n, 1)
-        cert = _certify(graph, y, target_shift=target, dense_limit=_DENSE_LIMIT)
+        # a shift that meets half the tolerance (n s <= tol * bound / 2), or the
+        # expected gap when the sweeps stopped early
+        target = max(0.5 * tol, expected_gap) * max(abs(primal_of(objective)), floor) / max(n, 1)
+        cert = _certify(graph, y, target_shift=target, dense_limit=_DENSE_LIMIT, tighten=tighten)
         bound_seconds += cert.seconds
         last_check_seconds = cert.seconds
         certified_at = sweeps
@@ -552,9 +554,13 @@ def solve_sdp_relaxation(graph, *, tol: float = 1e-4, max_sweeps: int = 20000,
         if sweeps >= max_sweeps:
             status = "iteration_limit"
             break
-        if deadline is not None and time.perf_counter() + last_check_seconds >= deadline:
-            status = "time_limit"
-            break
+        if deadline is not None:
+            # keep time for the last certificate: as long as the last one took, or
+            # 30% of the limit before any was measured
+            reserve = last_check_seconds if certified_at >= 0 else 0.3 * time_limit
+            if time.perf_counter() + reserve >= deadline:
+                status = "time_limit"
+                break
         change = _sdp_kernels.mixing_sweep(indptr, indices, weights, factor, scratch)
         sweeps += 1
         objective += change
@@ -573,7 +579,12 @@ def solve_sdp_relaxation(graph, *, tol: float = 1e-4, max_sweeps: int = 20000,
             else:
                 next_check = 0.5 * relative_change
     if certified_at != sweeps:
-        check()
+        if status == "time_limit":
+            # far from converged: start the ladder near the gap the square-root law
+            # predicts, and spend no time tightening
+            check(expected_gap=min(0.5, 0.5 * math.sqrt(relative_change)), tighten=0)
+        else:
+            check()
     primal = primal_of(objective)
     if best.certified:
         bound, dual, certified = best.bound, best.dual, True
