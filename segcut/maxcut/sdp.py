@@ -104,8 +104,10 @@ class SdpSolution:
         not confirm the SDP dual, this is the trivial bound (sum of the positive
         weights) and ``certified`` is False.
     dual : (n,) float64 ndarray
-        The dual vector ``z`` behind the bound: ``Diag(z) - L/4`` is positive
-        semidefinite (confirmed by a factorisation when ``certified``).
+        The dual vector ``z`` behind the bound when ``certified``: ``Diag(z) - L/4``
+        was confirmed positive semidefinite and ``upper_bound`` is ``sum(z)``
+        rounded upwards. When not ``certified``, the last unconfirmed estimate,
+        which proves nothing.
     n_sweeps : int
         Mixing sweeps made.
     seconds : float
