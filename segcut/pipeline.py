@@ -725,10 +725,7 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
         mask = ~mask  # no terminal: the side touching the frame less is foreground
     cleaned = _clean(mask, config)
     final_sides, _ = mask_to_sides(ig, cleaned)
-    final_mask = ig.paint(final_sides)
-    if ig.terminal is None and _border_rule(ig.region_foreground(final_sides),
-                                            _frame_pixels(ig.labels)):
-        final_mask = ~final_mask
+    final_mask = ig.paint(final_sides)  # already oriented: +1 is the foreground
     value_after = cut_value(ig.graph, final_sides)
     seconds["cleanup"] = time.perf_counter() - t0
     changed = int(np.count_nonzero(final_mask != mask))
