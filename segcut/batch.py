@@ -444,8 +444,7 @@ def _warm_up(config=None) -> None:
 
 # --- executors ---------------------------------------------------------------------------
 
-class _WorkerDied(Exception):
-    pass
+_THREAD_LIMITS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
 
 def _run_serial(tasks: Iterator[_Task]) -> Iterator[tuple[_Task, dict]]:
@@ -468,6 +467,10 @@ def _run_pool(tasks: Iterator[_Task], *, jobs: int, config) -> Iterator[tuple[_T
         return ProcessPoolExecutor(max_workers=jobs, mp_context=context,
                                    initializer=_warm_up, initargs=(config,))
 
+    # one BLAS/OpenMP thread per worker process, as Dask's workers get: N workers on N
+    # cores, not N x N threads (only variables the user has not set are changed)
+    added = {k: "1" for k in _THREAD_LIMITS if k not in os.environ}
+    os.environ.update(added)
     pool = new_pool()
     in_flight: dict = {}
     exhausted = False
@@ -508,6 +511,8 @@ def _run_pool(tasks: Iterator[_Task], *, jobs: int, config) -> Iterator[tuple[_T
                 pool = new_pool()
     finally:
         _stop_pool(pool)
+        for key in added:
+            os.environ.pop(key, None)
 
 
 def _stop_pool(pool) -> None:
