@@ -368,7 +368,7 @@ def _build(image, config, seeds, channel_axis, rng):
                           start=-np.ones(1, np.int8), warnings=warnings, seconds=seconds)
 
     t0 = time.perf_counter()
-    labels = oversegment(values, n_superpixels=config.n_superpixels,
+    labels = oversegment(feats, n_superpixels=config.n_superpixels,
                          compactness=config.compactness,
                          pixel_grid_max_pixels=config.pixel_grid_max_pixels,
                          sigma=config.sigma)

@@ -47,19 +47,19 @@ def pixel_grid_labels(spatial_shape) -> np.ndarray:
     return np.arange(int(np.prod(shape)), dtype=np.int64).reshape(shape)
 
 
-def oversegment(image, *, n_superpixels: int | None = None, compactness: float = 10.0,
+def oversegment(features, *, n_superpixels: int | None = None, compactness: float = 10.0,
                 pixel_grid_max_pixels: int = 4096, sigma: float = 1.0) -> np.ndarray:
     """Split an image into superpixels (SLIC), or into pixels when it is small.
 
     Parameters
     ----------
-    image : (M, N, C) or (P, M, N, C) float ndarray
-        RGB (C = 3) or gray (C = 1) values in [0, 1], channels last. SLIC works in
-        CIELAB (gray is taken as R = G = B) after scaling the image to [0, 1].
+    features : (M, N, C) or (P, M, N, C) float ndarray
+        The image in CIELAB (C = 3) or as lightness ``100 * gray`` (C = 1),
+        channels last.
     n_superpixels : int, optional
         Target number of superpixels; by default :func:`default_n_superpixels`.
     compactness : float
-        SLIC compactness, in CIELAB units (10 is a usual value).
+        SLIC compactness in CIELAB units (10-20 are usual values).
     pixel_grid_max_pixels : int
         Images with at most this many pixels are not over-segmented: every pixel
         becomes a region.
@@ -72,6 +72,14 @@ def oversegment(image, *, n_superpixels: int | None = None, compactness: float =
     labels : (M, N) or (P, M, N) int64 ndarray
         Consecutive labels from 0; SLIC regions are connected.
 
+    Notes
+    -----
+    scikit-image's ``slic`` rescales its input to [0, 1] before clustering; the
+    compactness is divided by the same range, so it keeps its meaning in CIELAB
+    units (the labels equal those of ``slic`` on the RGB image with
+    ``convert2lab=True`` when the RGB values span [0, 1], without a second colour
+    conversion).
+
     References
     ----------
     R. Achanta et al., "SLIC superpixels compared to state-of-the-art superpixel
@@ -82,23 +90,24 @@ def oversegment(image, *, n_superpixels: int | None = None, compactness: float =
     >>> img = np.zeros((4, 4, 1))
     >>> oversegment(img).shape
     (4, 4)
-    >>> rgb = np.zeros((100, 100, 3)); rgb[:, 50:] = 0.8
-    >>> labels = oversegment(rgb, n_superpixels=20)
+    >>> lab = np.zeros((100, 100, 3)); lab[:, 50:, 0] = 80.0
+    >>> labels = oversegment(lab, n_superpixels=20)
     >>> int(labels.min()), bool(np.all(np.isin(labels[:, :50], labels[:, 50:])))
     (0, False)
     """
     from skimage.segmentation import slic
 
-    image = np.asarray(image, dtype=np.float64)
-    spatial = image.shape[:-1]
+    features = np.asarray(features, dtype=np.float64)
+    spatial = features.shape[:-1]
     n_pixels = int(np.prod(spatial))
     if n_pixels <= pixel_grid_max_pixels:
         return pixel_grid_labels(spatial)
     n = default_n_superpixels(n_pixels) if n_superpixels is None else int(n_superpixels)
     n = min(n, n_pixels)
-    rgb = image if image.shape[-1] == 3 else np.repeat(image[..., :1], 3, axis=-1)
-    labels = slic(rgb, n_segments=n, compactness=float(compactness), channel_axis=-1,
-                  convert2lab=True, start_label=0, enforce_connectivity=True,
-                  sigma=float(sigma))
+    value_range = float(features.max() - features.min())
+    scale = value_range if value_range > 0 else 1.0
+    labels = slic(features, n_segments=n, compactness=float(compactness) / scale,
+                  channel_axis=-1, convert2lab=False, start_label=0,
+                  enforce_connectivity=True, sigma=float(sigma))
     _, labels = np.unique(labels, return_inverse=True)
     return labels.reshape(spatial).astype(np.int64)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 from scipy import ndimage as ndi
+from skimage.color import rgb2lab
 
 from segcut.superpixels import default_n_superpixels, oversegment, pixel_grid_labels
 
@@ -21,14 +22,14 @@ def test_default_count_follows_image_size():
 
 
 def test_small_images_use_the_pixel_grid():
-    labels = oversegment(np.random.default_rng(0).random((20, 30, 3)))
+    labels = oversegment(rgb2lab(np.random.default_rng(0).random((20, 30, 3))))
     assert np.array_equal(labels, pixel_grid_labels((20, 30)))
 
 
 def test_slic_labels_are_consecutive_and_connected():
     rng = np.random.default_rng(1)
     image = np.clip(rng.normal(0.5, 0.1, (120, 140, 3)), 0, 1)
-    labels = oversegment(image, n_superpixels=60)
+    labels = oversegment(rgb2lab(image), n_superpixels=60)
     assert labels.min() == 0 and _consecutive(labels)
     # each SLIC region is one 4-connected piece (skimage enforce_connectivity, documented)
     for region in range(labels.max() + 1):
@@ -40,7 +41,7 @@ def test_superpixels_do_not_cross_a_sharp_edge():
     # common knowledge for SLIC: clusters in CIELAB + xy follow strong colour edges
     image = np.zeros((100, 100, 3))
     image[:, 47:] = (1.0, 0.2, 0.1)
-    labels = oversegment(image, n_superpixels=50, sigma=0.0)
+    labels = oversegment(rgb2lab(image), n_superpixels=50, sigma=0.0)
     left = set(np.unique(labels[:, :47]).tolist())
     right = set(np.unique(labels[:, 47:]).tolist())
     assert left.isdisjoint(right)
@@ -51,6 +52,6 @@ def test_gray_and_3d_stack():
     stack = np.zeros((6, 40, 40, 1))
     stack[:, 10:30, 10:30] = 0.8
     stack += rng.normal(0, 0.02, stack.shape)
-    labels = oversegment(stack, n_superpixels=40, pixel_grid_max_pixels=100)
+    labels = oversegment(100.0 * stack, n_superpixels=40, pixel_grid_max_pixels=100)
     assert labels.shape == (6, 40, 40) and _consecutive(labels)
     assert 10 <= labels.max() + 1 <= 200
