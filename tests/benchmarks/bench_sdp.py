@@ -70,17 +70,19 @@ def table(rows, header):
 
 
 def bench_graph(name, graph, *, tol, best_known=None, known_sdp=None, repeats=1):
-    times = []
-    for _ in range(repeats):
+    fastest, sol = math.inf, None
+    for _ in range(repeats):  # same seed: same answer; keep the fastest run's timings
         start = time.perf_counter()
-        sol = solve_sdp_relaxation(graph, tol=tol, rng=0)
-        times.append(time.perf_counter() - start)
+        run = solve_sdp_relaxation(graph, tol=tol, rng=0)
+        seconds = time.perf_counter() - start
+        if seconds < fastest:
+            fastest, sol = seconds, run
     start = time.perf_counter()
     result = solve_maxcut(graph, method="sdp", tol=tol, rng=0)
     method_seconds = time.perf_counter() - start
     bound_vs_known = "" if known_sdp is None else f"{(sol.upper_bound - known_sdp) / known_sdp:+.1e}"
     cut = f"{result.value:.0f}" if best_known is None else f"{result.value:.0f} ({result.value / best_known:.3f})"
-    return [name, graph.n_vertices, graph.n_edges, f"{min(times):.3f}", sol.n_sweeps,
+    return [name, graph.n_vertices, graph.n_edges, f"{fastest:.3f}", sol.n_sweeps,
             f"{sol.bound_seconds:.3f}", f"{sol.upper_bound:.2f}", f"{sol.relaxation_value:.2f}",
             f"{sol.gap:.1e}", "yes" if sol.certified else "NO",
             "" if known_sdp is None else f"{known_sdp:.2f}", bound_vs_known,
