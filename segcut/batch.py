@@ -110,7 +110,7 @@ SUMMARY_COLUMNS = ("input", "status", "foreground_fraction", "cut_value", "upper
                    "n_superpixels", "seconds", "warnings", "error")
 
 _HASH_CHUNK = 1 << 20
-_THUMBNAIL_SIZE = 160
+_THUMBNAIL_SIZE = 128
 
 
 # --- finding inputs --------------------------------------------------------------------

@@ -146,7 +146,7 @@ def histogram_svg(values: Sequence[float], *, lo: float = 0.0, hi: float | None 
     index[clean == hi] = n_bins - 1
     counts = np.bincount(index, minlength=n_bins).tolist()
     top = max(counts, default=0) or 1
-    left, right, upper, lower = 34, 8, 24, 30
+    left, right, upper, lower = 34, 24, 24, 30
     plot_w, plot_h = width - left - right, height - upper - lower
     bar_w = plot_w / n_bins
     parts = [f'<svg class="hist" width="{width}" '
@@ -196,7 +196,7 @@ th, td { border-bottom:1px solid var(--line); padding:4px 8px; text-align:left; 
 th { position:sticky; top:0; background:#e9edf2; cursor:pointer; user-select:none; white-space:nowrap; }
 th[data-dir=asc]::after { content:" \\25B2"; } th[data-dir=desc]::after { content:" \\25BC"; }
 td.num { text-align:right; font-variant-numeric:tabular-nums; }
-td.thumb img { display:block; max-width:160px; max-height:160px; }
+td.thumb img { display:block; max-width:112px; max-height:112px; }
 .status-ok { color:var(--ok); } .status-failed { color:var(--bad); font-weight:600; }
 .flag { display:inline-block; margin:1px 2px; padding:0 6px; border-radius:9px; font-size:12px;
         background:#fbe9dc; color:var(--flag); border:1px solid #efc3a5; }
@@ -387,7 +387,7 @@ def render_report(rows: Sequence[dict], *, title: str = "segcut run",
             _number_cell(row.get("foreground_fraction"), _fmt(row.get("foreground_fraction"), ".3f")),
             _number_cell(row.get("cut_value"), _fmt(row.get("cut_value"), ".6g")),
             _number_cell(row.get("upper_bound"), _fmt(row.get("upper_bound"), ".6g")),
-            _number_cell(gap, "" if gap is None else f"{100 * gap:.2f}%"),
+            _number_cell(gap, "" if gap is None else f"{100 * gap:.3g}%"),
             _number_cell(row.get("n_superpixels"), _fmt(row.get("n_superpixels"), ".0f")),
             _number_cell(row.get("seconds"), _fmt(row.get("seconds"), ".2f")),
             '<td class="note">' + "<br>".join(html.escape(n) for n in notes) + "</td>",
