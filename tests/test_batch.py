@@ -342,6 +342,28 @@ def test_bad_files_become_records_and_the_run_goes_on(tmp_path):
     assert (out / "report.html").is_file()
 
 
+def test_multipage_tiff_stack_gets_a_tiff_mask(tmp_path):
+    import tifffile
+
+    rng = np.random.default_rng(3)
+    _, yy, xx = np.mgrid[0:4, 0:64, 0:64]
+    ball = (yy - 32) ** 2 + (xx - 30) ** 2 < 18 ** 2
+    volume = np.clip(np.where(ball, 0.8, 0.2) + rng.normal(0, 0.03, ball.shape), 0, 1)
+    src = tmp_path / "in"
+    src.mkdir()
+    tifffile.imwrite(src / "stack.tif", (volume * 255).astype(np.uint8), photometric="minisblack")
+    out = tmp_path / "out"
+    summary = run_batch([src], out, SplitConfig(), jobs=1, report=False)
+    assert summary.done == 1
+    record = load_records(out)["stack.tif"]
+    assert record["mask"] == "masks/stack.tif" and record["overlay"] == "overlays/stack.png"
+    mask = tifffile.imread(out / "masks" / "stack.tif") > 127
+    assert mask.shape == (4, 64, 64)
+    assert np.array_equal(mask, direct_mask(src / "stack.tif", record["seed"]))
+    resumed = run_batch([src], out, SplitConfig(), jobs=1, report=False)
+    assert resumed.resumed == 1  # the .tif mask counts as finished
+
+
 # --- processes, kills and executors -------------------------------------------------------------
 
 def _cli(*args) -> list:
