@@ -248,12 +248,14 @@ def tabu_init(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, win
 
 @njit(cache=True)
 def _perturb(indptr, indices, weights, sides, gains, best_sides, istate, fstate, rng_state,
-             min_strength, max_strength):
+             min_strength, max_strength, flipped):
     """Return to the best sides and flip ``istate[TS_STRENGTH]`` random vertices.
 
     The strength falls back to ``min_strength`` when the best improved since the last
     perturbation and otherwise grows by ``min_strength`` up to ``max_strength``.
-    Leaves the gains of the new sides in ``gains`` and their cut in ``fstate``.
+    Leaves the gains of the new sides in ``gains`` and their cut in ``fstate``, and
+    the flipped vertices in ``flipped`` (at least ``max_strength`` long); returns
+    how many were flipped.
     """
     n = sides.shape[0]
     if istate[TS_PENDING] == 1:
@@ -270,11 +272,37 @@ def _perturb(indptr, indices, weights, sides, gains, best_sides, istate, fstate,
         sides[k] = best_sides[k]
     compute_gains(indptr, indices, weights, sides, gains)
     current = fstate[TS_BEST]
-    for _ in range(istate[TS_STRENGTH]):
+    count = istate[TS_STRENGTH]
+    for k in range(count):
         v = rand_below(rng_state, n)
         current += gains[v]
         flip_vertex(indptr, indices, weights, sides, gains, v)
+        flipped[k] = v
     fstate[TS_CURRENT] = current
+    return count
+
+
+@njit(cache=True)
+def _tabu_after_jump(flipped, count, tabu, tabu_until, heap_t, heap_v, t, tenure_base,
+                     tenure_spread, rng_state, keep):
+    """Clear the tabu list; with ``keep``, make the vertices of the jump tabu so the
+    search cannot undo the jump at once. Returns the new heap size."""
+    for v in range(tabu.shape[0]):
+        tabu[v] = 0
+    hs = 0
+    if not keep:
+        return hs
+    for k in range(count):
+        v = flipped[k]
+        if tabu[v] == 1 or hs >= heap_t.shape[0]:
+            continue
+        tenure = tenure_base
+        if tenure_spread > 0:
+            tenure += rand_below(rng_state, tenure_spread + 1)
+        tabu[v] = 1
+        tabu_until[v] = t + 1 + tenure
+        hs = _heap_push(heap_t, heap_v, hs, t + 1 + tenure, v)
+    return hs
 
 
 @njit(cache=True)
@@ -295,7 +323,7 @@ def _scan_best(gains, tie, tabu):
 def tabu_search(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, win_free,
                 win_tabu, size, heap_t, heap_v, best_sides, istate, fstate, rng_state,
                 tenure_base, tenure_spread, stall_moves, min_strength, max_strength,
-                tol, target, n_moves, use_scan):
+                tol, target, n_moves, use_scan, flipped, keep_jump):
     """Run ``n_moves`` moves of tabu search; all state lives in the arrays passed in.
 
     Each move flips the vertex with the largest gain among those not tabu (ties broken
@@ -332,12 +360,16 @@ def tabu_search(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, w
 
         # perturbation: back to the best, then a random jump
         if t - istate[TS_LAST_BEST] > stall_moves:
-            _perturb(indptr, indices, weights, sides, gains, best_sides, istate, fstate,
-                     rng_state, min_strength, max_strength)
-            _tabu_reset(indptr, indices, weights, sides, gains, tie, tabu, win_free,
-                        win_tabu, size, istate, rng_state)
+            count = _perturb(indptr, indices, weights, sides, gains, best_sides, istate,
+                             fstate, rng_state, min_strength, max_strength, flipped)
+            hs = _tabu_after_jump(flipped, count, tabu, tabu_until, heap_t, heap_v, t,
+                                  tenure_base, tenure_spread, rng_state, keep_jump)
+            istate[TS_HEAP_SIZE] = hs
+            for v in range(n):
+                tie[v] = rand_u64(rng_state)
+            tree_build(win_free, size, n, gains, tie, tabu, 0)
+            tree_build(win_tabu, size, n, gains, tie, tabu, 1)
             istate[TS_LAST_BEST] = t
-            hs = 0
 
         # choose the move
         if use_scan:
@@ -569,7 +601,7 @@ def bucket_build(order, pos, start, gains, tabu, offset):
 def tabu_search_buckets(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, order,
                         pos, start, offset, heap_t, heap_v, best_sides, istate, fstate,
                         rng_state, tenure_base, tenure_spread, stall_moves, min_strength,
-                        max_strength, target, n_moves):
+                        max_strength, target, n_moves, flipped, keep_jump):
     """The search of :func:`tabu_search` with O(1) move selection; integer weights only.
 
     Same moves, tenure, aspiration and perturbations as :func:`tabu_search` (ties
@@ -602,12 +634,11 @@ def tabu_search_buckets(indptr, indices, weights, sides, gains, tie, tabu, tabu_
         istate[TS_HEAP_SIZE] = hs
 
         if t - istate[TS_LAST_BEST] > stall_moves:
-            _perturb(indptr, indices, weights, sides, gains, best_sides, istate, fstate,
-                     rng_state, min_strength, max_strength)
-            for v in range(n):
-                tabu[v] = 0
-            istate[TS_HEAP_SIZE] = 0
-            hs = 0
+            count = _perturb(indptr, indices, weights, sides, gains, best_sides, istate,
+                             fstate, rng_state, min_strength, max_strength, flipped)
+            hs = _tabu_after_jump(flipped, count, tabu, tabu_until, heap_t, heap_v, t,
+                                  tenure_base, tenure_spread, rng_state, keep_jump)
+            istate[TS_HEAP_SIZE] = hs
             top = bucket_build(order, pos, start, gains, tabu, offset)
             istate[TS_LAST_BEST] = t
 

@@ -84,7 +84,8 @@ def _sdp_start(graph: SignedGraph, *, time_limit, rng):
 def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = None,
                 time_limit: float | None = None, tenure: int | None = None,
                 stall_moves: int | None = None, target: float | None = None,
-                selection: str = "auto", tenure_spread: int | None = None):
+                selection: str = "auto", tenure_spread: int | None = None,
+                keep_jump: bool = True):
     """Run tabu search with perturbations from ``start``; the engine of method ``"tabu"``.
 
     Parameters
@@ -115,6 +116,9 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
         updated in O(log n) per changed gain. "auto" takes buckets when the weights
         allow, else scans when ``n`` is below 25 times the mean degree times ``log2 n``
         (small dense graphs), else trees.
+    keep_jump : bool, default True
+        Make the vertices flipped by a perturbation tabu, so the search cannot undo
+        the jump at once (as Breakout Local Search does with its perturbation moves).
 
     Returns
     -------
@@ -159,7 +163,8 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
     tabu_until = np.zeros(n, dtype=np.int64)
     win_free = np.empty(2 * size, dtype=np.int64)
     win_tabu = np.empty(2 * size, dtype=np.int64)
-    heap_cap = base + spread + 3
+    flipped = np.empty(max_strength, dtype=np.int64)
+    heap_cap = base + spread + 3 + max_strength
     heap_t = np.empty(heap_cap, dtype=np.int64)
     heap_v = np.empty(heap_cap, dtype=np.int64)
     istate = np.zeros(_kernels.TS_N_ISTATE, dtype=np.int64)
@@ -212,11 +217,11 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
         if selection == "buckets":
             _kernels.tabu_search_buckets(*bucket_args, heap_t, heap_v, best, istate, fstate,
                                          rng_state, base, spread, stall, min_strength,
-                                         max_strength, goal, step)
+                                         max_strength, goal, step, flipped, keep_jump)
         else:
             _kernels.tabu_search(*args, heap_t, heap_v, best, istate, fstate, rng_state,
                                  base, spread, stall, min_strength, max_strength, tol, goal, step,
-                                 use_scan)
+                                 use_scan, flipped, keep_jump)
         took = time.perf_counter() - t0
         if took > 0:
             chunk = int(min(max(1000, step * _CHUNK_SECONDS / took), 10 * chunk + 1000))
