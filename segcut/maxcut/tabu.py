@@ -7,7 +7,8 @@ vertex is *tabu* for a few moves (its tenure) unless flipping it would beat the 
 cut seen so far (aspiration). Plain tabu search can cycle around one region of the
 search space, so after many moves without a new best the search returns to the best
 sides found and flips a small random fraction of the vertices (1% to 10%, more after
-each jump that led nowhere), in the spirit of Breakout Local Search.
+each jump that led nowhere), which then stay tabu for one tenure so the jump is not
+undone at once: in the spirit of Breakout Local Search (Benlic & Hao, 2013).
 
 On large graphs and on graphs with real-valued weights a start from the
 Goemans-Williamson rounding of the semidefinite relaxation (method ``"sdp"``) is much
