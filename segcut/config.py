@@ -221,7 +221,8 @@ class SplitConfig:
             if isinstance(prior, str):
                 prior = [p for p in prior.split(",") if p.strip()]
             if not isinstance(prior, list):
-                raise ConfigError(f"[prior] prior must be a list of names; got {prior!r}", path=path)
+                raise ConfigError(f"[prior] prior must be a list of names; got {prior!r}",
+                                  path=path)
             values["prior"] = tuple(p.strip() if isinstance(p, str) else p for p in prior)
         if "box" in values:
             box = values["box"]

@@ -403,7 +403,8 @@ def _build(image, config, seeds, channel_axis, rng):
         prior_u = config.prior_strength * np.bincount(flat_labels, weights=pmap.ravel(),
                                                       minlength=n)
         pos = (pmap > 0) if inside is None else (pmap > 0) | inside
-        fg_w = np.bincount(flat_labels, weights=pos.ravel().astype(float), minlength=n) / regions.area
+        fg_w = np.bincount(flat_labels, weights=pos.ravel().astype(float),
+                           minlength=n) / regions.area
         bg_w = np.bincount(flat_labels, weights=(pmap < 0).ravel().astype(float),
                            minlength=n) / regions.area
     merged = np.zeros(n, dtype=np.int8)

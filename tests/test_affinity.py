@@ -55,7 +55,8 @@ def test_every_model_separates_a_two_colour_scene(model):
 
 
 def test_histogram_distance_extremes():
-    # chi-square distance 0.5 sum (p - q)^2 / (p + q): 0 for equal, 1 for disjoint (common knowledge)
+    # chi-square distance 0.5 sum (p - q)^2 / (p + q): 0 for equal histograms, 1 for
+    # disjoint ones (common knowledge)
     labels = np.array([[0, 1, 2]])
     feats = np.array([[[0.0], [0.0], [90.0]]])
     regions = describe_regions(labels, feats, n_colour_words=2)
