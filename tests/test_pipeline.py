@@ -267,3 +267,23 @@ def test_seed_merging_keeps_every_cut_value_up_to_the_offset(seed):
         assert np.all(fg[merged == 1]) and not np.any(fg[merged == -1])
         unmerged = np.sum(weights * (fg[rows] != fg[cols])) + np.sum(-evidence * ~fg)
         assert np.isclose(cut_value(graph, sides) + offset, unmerged)
+
+
+@settings(max_examples=15, deadline=None)
+@given(seed=st.integers(0, 10_000),
+       prior=st.sampled_from([(), ("border",), ("center",), ("border", "center")]),
+       fill=st.booleans(), min_size=st.sampled_from([0, 30]),
+       method=st.sampled_from(["auto", "local"]))
+def test_reported_value_is_the_cut_of_the_returned_mask(seed, prior, fill, min_size, method):
+    """For any image and options: value == cut of the mask's projection, bound >= value."""
+    rng = np.random.default_rng(seed)
+    blocks = rng.random((5, 6, 3))
+    image = np.kron(blocks, np.ones((12, 12, 1))) + rng.normal(0, 0.05, (60, 72, 3))
+    cfg = SplitConfig(prior=prior, fill_holes=fill, min_region_size=min_size, method=method)
+    result = split(np.clip(image, 0, 1), cfg, rng=seed)
+    sides, agreement = mask_to_sides(result.image_graph, result.mask)
+    assert agreement == 1.0
+    assert cut_value(result.image_graph.graph, sides) == result.value
+    assert result.mask.dtype == bool and result.mask.shape == (60, 72)
+    if result.upper_bound is not None:
+        assert result.upper_bound >= result.value - 1e-9 * max(1.0, abs(result.upper_bound))
