@@ -56,10 +56,13 @@ read the images and write masks and overlays themselves; only this process write
 
 Memory
 ------
-Peak memory is set by the largest image a worker holds. Measured
-(``tests/benchmarks/bench_batch.py --memory``): one 6000x4000 RGB JPEG peaks at about
-4.1 GiB resident for the whole ``segcut split --jobs 1`` process; 512x512 images need a
-few hundred MiB per worker. With ``jobs=N`` plan for N times the per-image peak.
+Peak memory is set by the largest image a worker holds (inputs stream: a worker reads
+one image, splits it, writes its outputs and lets it go; the parent keeps only the
+small records). Measured with ``tests/benchmarks/bench_batch.py --memory``: one
+6000x4000 RGB JPEG (24 Mpixel) peaks at 3.6 GiB resident for the whole
+``segcut split --jobs 1`` process, most of it in the superpixel stage; plan on a
+budget of 4 GiB per worker for such photographs (so ``--jobs 5`` on a 24 GiB machine),
+and a few hundred MiB per worker for 512x512 images.
 """
 
 from __future__ import annotations
