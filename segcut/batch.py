@@ -507,8 +507,7 @@ def _run_pool(tasks: Iterator[_Task], *, jobs: int, config) -> Iterator[tuple[_T
                     else:
                         pending_tasks.append(task)
             if broken:
-                for future, task in list(in_flight.items()):
-                    pending_tasks.append(task)
+                pending_tasks.extend(in_flight.values())
                 in_flight.clear()
                 pool.shutdown(wait=True, cancel_futures=True)
                 pool = new_pool()
@@ -717,7 +716,8 @@ def _thumbnail_jpeg(path: Path, size: int) -> bytes | None:
         return None
 
 
-def write_report(out_dir, *, title: str | None = None, thumbnail_size: int = _THUMBNAIL_SIZE) -> Path:
+def write_report(out_dir, *, title: str | None = None,
+                 thumbnail_size: int = _THUMBNAIL_SIZE) -> Path:
     """Write ``report.html`` of a run folder from its records and overlays.
 
     Parameters

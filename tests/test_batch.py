@@ -294,8 +294,6 @@ def test_seed_folder_is_matched_by_relative_path_then_stem(scenes, serial_run, t
 
 
 def test_bad_files_become_records_and_the_run_goes_on(tmp_path):
-    from PIL import ImageCms  # noqa: F401 - CMYK JPEG support is part of Pillow
-
     src = tmp_path / "in"
     src.mkdir()
     image, truth = scene(0)
@@ -453,7 +451,10 @@ def test_process_pool_and_dask_local_cluster_write_identical_bytes(scenes, seria
         assert folder_bytes(tmp_path / "pool" / name) == expected
         assert folder_bytes(tmp_path / "dask" / name) == expected
     timing = {"seconds", "stage_seconds"}
-    strip = lambda rs: {k: {f: v for f, v in r.items() if f not in timing} for k, r in rs.items()}
+
+    def strip(records):
+        return {k: {f: v for f, v in r.items() if f not in timing} for k, r in records.items()}
+
     assert strip(load_records(tmp_path / "dask")) == strip(load_records(reference))
     assert strip(load_records(tmp_path / "pool")) == strip(load_records(reference))
 

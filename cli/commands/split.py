@@ -63,7 +63,7 @@ def _clock(seconds) -> str:
 
 
 class ProgressPrinter:
-    """Draws progress on ``stream``: a bar on a terminal, plain lines every ``interval`` s otherwise."""
+    """Show progress on ``stream``: a bar on a terminal, else a plain line every ``interval`` s."""
 
     def __init__(self, stream, *, interval: float = 10.0, width: int = 28):
         self.stream = stream
