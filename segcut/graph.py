@@ -48,7 +48,7 @@ class SignedGraph:
     --------
     >>> g = graph_from_edges(3, [0, 1], [1, 2], [1.0, -2.0])
     >>> g
-    SignedGraph(n_vertices=3, n_edges=2, total_weight=-1.0)
+    SignedGraph(n_vertices=3, n_edges=2, total_weight=-1)
     >>> g.neighbors(1)
     (array([0, 2]), array([ 1., -2.]))
     """

@@ -41,7 +41,7 @@ def flip_gains(graph: SignedGraph, sides) -> np.ndarray:
     >>> from segcut.graph import graph_from_edges
     >>> g = graph_from_edges(3, [0, 1], [1, 2])
     >>> flip_gains(g, [1, 1, -1])
-    array([ 1., -0.,  1.])
+    array([ 1.,  0., -1.])
     """
     x = validate_sides(graph, sides)
     gains = np.empty(graph.n_vertices, dtype=np.float64)
