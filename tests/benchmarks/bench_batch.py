@@ -60,12 +60,15 @@ def run_once(label: str, src: Path, out: Path, **executor) -> tuple:
     from segcut.batch import run_batch
     from segcut.config import SplitConfig
 
+    from segcut.batch import load_records
+
     t0 = time.perf_counter()
     summary = run_batch([src], out, SplitConfig(), report=False, **executor)
     seconds = time.perf_counter() - t0
     if summary.failed or summary.done != summary.total:
         raise SystemExit(f"{label}: {summary.failed} images failed")
-    return seconds, summary.total
+    per_image = float(np.median([r["seconds"] for r in load_records(out).values()]))
+    return seconds, summary.total, per_image
 
 
 def memory_check(workdir: Path) -> None:
@@ -130,19 +133,23 @@ def main() -> None:
         for k, (label, executor) in enumerate(runs):
             out = workdir / f"out{k}"
             shutil.rmtree(out, ignore_errors=True)
-            seconds, total = run_once(label, src, out, **executor)
-            results.append((label, seconds, total, out))
+            seconds, total, per_image = run_once(label, src, out, **executor)
+            results.append((label, seconds, total, out, per_image))
         base = results[0][1]
         pool = results[1][1]
         print()
-        print(f"{'executor':<30} {'seconds':>8} {'images/s':>9} {'speed-up':>9} {'vs pool':>8}")
-        for label, seconds, total, _ in results:
+        print(f"{'executor':<30} {'seconds':>8} {'images/s':>9} {'speed-up':>9} {'vs pool':>8} "
+              f"{'median s/image in worker':>25}")
+        for label, seconds, total, _, per_image in results:
             print(f"{label:<30} {seconds:8.1f} {total / seconds:9.2f} {base / seconds:8.2f}x "
-                  f"{seconds / pool:7.2f}x")
+                  f"{seconds / pool:7.2f}x {per_image:25.3f}")
+        print("(a per-image time that grows with the number of workers means the cores are "
+              "shared: other load on the machine)")
         reference = folder_bytes(results[0][3] / "masks"), folder_bytes(results[0][3] / "overlays")
         same = all((folder_bytes(out / "masks"), folder_bytes(out / "overlays")) == reference
-                   for _, _, _, out in results[1:])
-        print(f"\nmasks and overlays byte-identical across the three runs: {'yes' if same else 'NO'}")
+                   for _, _, _, out, _ in results[1:])
+        verdict = "yes" if same else "NO"
+        print(f"\nmasks and overlays byte-identical across the three runs: {verdict}")
         print(f"target 2 workers >= 1.7x one worker: {base / pool:.2f}x "
               f"({'met' if base / pool >= 1.7 else 'NOT met'})")
         dask = results[2][1]
