@@ -10,7 +10,7 @@ from __future__ import annotations
 import networkx as nx
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from networkx.algorithms.approximation.maxcut import one_exchange
 
@@ -111,3 +111,139 @@ def test_bad_start_is_refused():
     g = random_graph(10, 3, 0)
     with pytest.raises(ValueError, match="one entry per vertex"):
         solve_maxcut(g, method="local", start=[1, -1])
+
+
+# --- best improvement (rule="best") ----------------------------------------------------
+
+def plus_minus_one_graph(n, degree, seed):
+    """Signed graph with weights +-1: many tied gains."""
+    rng = np.random.default_rng(seed)
+    m = max(1, n * degree // 2)
+    i = rng.integers(0, n, m)
+    j = rng.integers(0, n, m)
+    keep = i != j
+    pairs = {(min(a, b), max(a, b)) for a, b in zip(i[keep].tolist(), j[keep].tolist())}
+    ends = np.array(sorted(pairs), dtype=np.int64).reshape(-1, 2)
+    return graph_from_edges(n, ends[:, 0], ends[:, 1], rng.choice([-1.0, 1.0], size=len(ends)))
+
+
+def reference_steepest_ascent(graph, sides):
+    """Steepest 1-flip ascent by recomputing every gain from its definition each move.
+
+    Returns the final sides and the number of flips, or None when two largest gains
+    come within 1e-9 of each other on the way (the order of such moves is not well
+    defined across implementations, so the comparison is skipped).
+    """
+    x = np.array(sides, dtype=np.int64)
+    moves = 0
+    while True:
+        gains = reference_gains(graph, x)
+        top_two = np.sort(gains)[-2:] if gains.size > 1 else gains
+        if gains.size > 1 and top_two[1] > 1e-9 and top_two[1] - top_two[0] <= 1e-9:
+            return None
+        v = int(np.argmax(gains))
+        if gains[v] <= 1e-9:
+            return x, moves
+        x[v] = -x[v]
+        moves += 1
+
+
+@settings(max_examples=40, deadline=None)
+@given(n=st.integers(2, 80), seed=st.integers(0, 2 ** 32 - 1),
+       kind=st.sampled_from(["signed", "nonnegative", "plus_minus_one"]),
+       start=st.sampled_from(["empty", None]))
+def test_best_rule_ends_at_a_local_optimum(n, seed, kind, start):
+    if kind == "plus_minus_one":
+        g = plus_minus_one_graph(n, 5, seed)
+    else:
+        g = random_graph(n, 5, seed, signed=kind == "signed")
+    result = solve_maxcut(g, method="local", rule="best", start=start, rng=seed)
+    assert_valid_cut(g, result, local_optimum=True)
+    assert result.status == "local_optimum"
+
+
+@settings(max_examples=30, deadline=None)
+@given(n=st.integers(2, 50), seed=st.integers(0, 2 ** 32 - 1), empty=st.booleans())
+def test_best_rule_matches_a_reference_steepest_ascent_when_gains_are_distinct(n, seed, empty):
+    # reference: steepest ascent written out in plain Python, every gain recomputed from
+    # its definition before each move; normal weights make tied gains almost impossible
+    g = random_graph(n, 4, seed)
+    if empty:
+        start = np.ones(n, dtype=np.int8)
+    else:
+        start = np.random.default_rng(seed).choice([-1, 1], size=n)
+    expected = reference_steepest_ascent(g, start)
+    assume(expected is not None)
+    for selection in ("auto", "tree"):
+        sides, moves = descend(g, start, rule="best", selection=selection, rng=seed)
+        assert np.array_equal(sides, expected[0])
+        assert moves == expected[1]
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_best_rule_from_the_empty_cut_equals_networkx_one_exchange(seed):
+    # reference: networkx one_exchange (weight="weight"), a steepest ascent from the empty
+    # cut. With normal weights no two gains tie, so both make the same moves and end at
+    # the same cut. Where gains tie (e.g. weights +-1) the two break ties differently and
+    # either may end higher; then only "both are local optima" holds.
+    g = random_graph(40, 4, seed)
+    nx_value, (flipped, _) = one_exchange(to_networkx(g), seed=seed, weight="weight")
+    result = solve_maxcut(g, method="local", rule="best", start="empty", rng=seed)
+    assert result.value >= nx_value - 1e-9
+    assert result.value == pytest.approx(nx_value, rel=1e-12, abs=1e-12)
+    assert set(np.flatnonzero(result.sides == -1).tolist()) == set(flipped)
+
+
+@pytest.mark.parametrize("selection", ["buckets", "tree"])
+@pytest.mark.parametrize("seed", range(3))
+def test_every_best_move_takes_a_largest_gain_when_gains_tie(selection, seed):
+    # checked against gains recomputed from their definition (tests/checks.py): the
+    # descent cut short after k flips and after k + 1 flips differ in one vertex, whose
+    # gain was a largest one
+    g = plus_minus_one_graph(30, 4, seed)
+    start = np.ones(30, dtype=np.int8)
+    _, total = descend(g, start, rule="best", selection=selection, rng=seed)
+    assert total > 0
+    before = start
+    for k in range(1, total + 1):
+        after, moves = descend(g, start, rule="best", selection=selection, rng=seed, max_moves=k)
+        assert moves == k
+        changed = np.flatnonzero(after != before)
+        assert changed.size == 1
+        gains = reference_gains(g, before)
+        assert gains[changed[0]] == gains.max() > 0
+        before = after
+    assert reference_gains(g, before).max() <= 0
+
+
+def test_best_rule_same_seed_same_answer():
+    g = plus_minus_one_graph(300, 4, 2)
+    a = solve_maxcut(g, method="local", rule="best", start="empty", rng=5)
+    b = solve_maxcut(g, method="local", rule="best", start="empty", rng=5)
+    assert np.array_equal(a.sides, b.sides)
+
+
+def test_empty_start_puts_every_vertex_on_one_side_before_the_descent():
+    g = random_graph(50, 4, 3)
+    result = solve_maxcut(g, method="local", rule="first", start="empty", rng=0)
+    expected, _ = descend(g, np.ones(50, dtype=np.int8), rng=np.random.default_rng(0))
+    assert_valid_cut(g, result, local_optimum=True)
+    assert np.array_equal(result.sides, expected)
+
+
+def test_unknown_rule_is_refused():
+    g = random_graph(10, 3, 0)
+    with pytest.raises(ValueError, match="rule must be one of first, best"):
+        solve_maxcut(g, method="local", rule="steepest")
+
+
+def test_unknown_start_word_is_refused():
+    g = random_graph(10, 3, 0)
+    with pytest.raises(ValueError, match="start must be None, 'empty' or an array"):
+        solve_maxcut(g, method="local", start="full")
+
+
+def test_buckets_need_whole_number_weights():
+    g = random_graph(10, 3, 0)
+    with pytest.raises(ValueError, match="selection='buckets' needs whole-number weights"):
+        descend(g, np.ones(10, dtype=np.int8), rule="best", selection="buckets")

@@ -717,3 +717,106 @@ def tabu_search_buckets(indptr, indices, weights, sides, gains, tie, tabu, tabu_
             best_sides[k] = sides[k]
         istate[TS_PENDING] = 0
     return done
+
+
+# --- steepest ascent: always flip a vertex of largest gain -------------------------------
+# Whole-number weights: the bucket layout of the tabu search above, with every vertex of
+# gain <= 0 in bucket 0 and bucket ``b >= 1`` holding the vertices of gain ``b``; the
+# best move is a random member of the highest non-empty bucket. Real weights: one
+# tournament tree over all vertices (``member`` all 0), ties to the larger ``tie`` key.
+
+@njit(cache=True)
+def _ascent_bucket(gain, top_bucket):
+    b = np.int64(gain)
+    if b < 0:
+        return 0
+    if b > top_bucket:
+        return top_bucket
+    return b
+
+
+@njit(cache=True)
+def ascent_bucket_build(order, pos, start, gains):
+    """Counting sort of the vertices by clamped gain; returns the top non-empty bucket."""
+    n = gains.shape[0]
+    n_buckets = start.shape[0] - 1
+    for b in range(n_buckets + 1):
+        start[b] = 0
+    for v in range(n):
+        start[_ascent_bucket(gains[v], n_buckets - 1) + 1] += 1
+    for b in range(n_buckets):
+        start[b + 1] += start[b]
+    fill = start[:n_buckets].copy()
+    for v in range(n):
+        b = _ascent_bucket(gains[v], n_buckets - 1)
+        order[fill[b]] = v
+        pos[v] = fill[b]
+        fill[b] += 1
+    top = n_buckets - 1
+    while top >= 1 and start[top] == start[top + 1]:
+        top -= 1
+    return top
+
+
+@njit(cache=True)
+def ascend_buckets(indptr, indices, weights, sides, gains, order, pos, start, rng_state,
+                   max_moves):
+    """Steepest 1-flip ascent for whole-number weights, moves chosen from gain buckets.
+
+    Each move flips a uniformly random vertex among those of largest positive gain.
+    ``start`` has ``max weighted degree + 2`` entries and the buckets must have been
+    filled by :func:`ascent_bucket_build`. A gain change of ``2 |w|`` moves a vertex
+    ``2 |w|`` buckets at one swap each, so a move costs O(sum of ``|w|`` around the
+    flipped vertex) plus the fall of the top bucket. Returns the number of flips.
+    """
+    top_bucket = start.shape[0] - 2
+    top = top_bucket
+    moves = 0
+    while moves < max_moves:
+        while top >= 1 and start[top] == start[top + 1]:
+            top -= 1
+        if top < 1:
+            break
+        v = order[start[top] + rand_below(rng_state, start[top + 1] - start[top])]
+        b_v = top
+        xi = sides[v]
+        for k in range(indptr[v], indptr[v + 1]):
+            j = indices[k]
+            old = gains[j]
+            new = old - 2.0 * weights[k] * xi * sides[j]
+            gains[j] = new
+            b_old = _ascent_bucket(old, top_bucket)
+            b_new = _ascent_bucket(new, top_bucket)
+            if b_old != b_new:
+                _bucket_move(order, pos, start, j, b_old, b_new)
+                if b_new > top:
+                    top = b_new
+        _bucket_move(order, pos, start, v, b_v, _ascent_bucket(-gains[v], top_bucket))
+        sides[v] = -xi
+        gains[v] = -gains[v]
+        moves += 1
+    return moves
+
+
+@njit(cache=True)
+def ascend_tree(indptr, indices, weights, sides, gains, tie, win, size, tol, max_moves):
+    """Steepest 1-flip ascent for any weights, moves chosen by a tournament tree.
+
+    Each move flips the vertex of largest gain (ties to the larger ``tie`` key) while
+    that gain exceeds ``tol``; a move costs O(deg log n). ``win`` (``2 size`` entries,
+    ``size`` a power of two >= n) is filled here. Returns the number of flips.
+    """
+    n = sides.shape[0]
+    member = np.zeros(n, dtype=np.int8)
+    tree_build(win, size, n, gains, tie, member, 0)
+    moves = 0
+    while moves < max_moves:
+        v = win[1]
+        if v < 0 or gains[v] <= tol:
+            break
+        flip_vertex(indptr, indices, weights, sides, gains, v)
+        tree_update(win, size, v, gains, tie, member, 0)
+        for k in range(indptr[v], indptr[v + 1]):
+            tree_update(win, size, indices[k], gains, tie, member, 0)
+        moves += 1
+    return moves

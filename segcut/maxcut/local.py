@@ -1,8 +1,20 @@
 """1-flip local search: one descent from one start.
 
-The method ``"local"`` examines vertices in a random order and flips any vertex
-whose flip raises the cut, keeping every vertex's gain up to date incrementally
-(O(degree) per flip, no O(n) scan). It always ends at a 1-flip local optimum.
+The method ``"local"`` flips one vertex at a time while a flip raises the cut,
+keeping every vertex's gain up to date incrementally (no O(n) scan per move), and
+always ends at a 1-flip local optimum. Two rules pick the next flip:
+
+``rule="first"`` (default)
+    first improvement: vertices are examined in a random order and any vertex whose
+    flip raises the cut is flipped; its neighbours are queued again. O(degree) per flip.
+``rule="best"``
+    best improvement (steepest ascent): always flip a vertex of largest gain, ties
+    broken at random for the seed. Whole-number weights keep the vertices in gain
+    buckets (O(degree) per flip for small weights); other weights in a tournament
+    tree (O(degree log n) per flip).
+
+The start is random by default, ``"empty"`` (every vertex on side +1, the cut of
+value 0), or given as an array of +-1.
 """
 
 from __future__ import annotations
@@ -13,7 +25,18 @@ from ..graph import SignedGraph, cut_value, validate_sides
 from . import _kernels
 from ._common import CutResult, register_method
 
-__all__ = ["descend", "flip_gains", "gain_tolerance"]
+__all__ = ["descend", "flip_gains", "gain_tolerance", "RULES"]
+
+#: The move rules of :func:`descend` and of method ``"local"``.
+RULES = ("first", "best")
+
+_SELECTIONS = ("auto", "buckets", "tree")
+
+# Steepest ascent keeps gains in buckets only when every weight is a whole number of at
+# most this size (a gain change of 2 |w| costs 2 |w| swaps) and the weighted degrees fit
+# a bucket array of modest length; otherwise it uses a tournament tree.
+_MAX_BUCKET_WEIGHT = 16
+_MAX_BUCKET_GAIN = 1 << 20
 
 
 def gain_tolerance(graph: SignedGraph) -> float:
@@ -49,8 +72,50 @@ def flip_gains(graph: SignedGraph, sides) -> np.ndarray:
     return gains
 
 
-def descend(graph: SignedGraph, sides, *, rng=None, max_moves: int | None = None) -> tuple[np.ndarray, int]:
-    """Run one first-improvement 1-flip descent from ``sides``.
+def _weighted_degrees(graph: SignedGraph) -> np.ndarray:
+    rows = np.repeat(np.arange(graph.n_vertices), np.diff(graph.indptr))
+    return np.bincount(rows, weights=np.abs(graph.weights), minlength=graph.n_vertices)
+
+
+def _buckets_fit(graph: SignedGraph, degrees: np.ndarray) -> bool:
+    w = graph.weights
+    if w.size == 0:
+        return True
+    return bool(np.all(w == np.round(w)) and np.abs(w).max() <= _MAX_BUCKET_WEIGHT
+                and degrees.max() <= _MAX_BUCKET_GAIN)
+
+
+def _ascend(graph: SignedGraph, x, gains, rng, limit: int, selection: str) -> tuple[int, str]:
+    """Steepest ascent from ``x`` (changed in place); returns (flips, selection used)."""
+    n = graph.n_vertices
+    degrees = _weighted_degrees(graph)
+    fits = _buckets_fit(graph, degrees)
+    if selection == "auto":
+        selection = "buckets" if fits else "tree"
+    elif selection == "buckets" and not fits:
+        raise ValueError(f"selection='buckets' needs whole-number weights of size at most "
+                         f"{_MAX_BUCKET_WEIGHT} and weighted degrees up to {_MAX_BUCKET_GAIN}")
+    if selection == "buckets":
+        max_gain = int(degrees.max()) if n else 0
+        order = np.empty(n, dtype=np.int64)
+        pos = np.empty(n, dtype=np.int64)
+        start = np.zeros(max_gain + 2, dtype=np.int64)
+        _kernels.ascent_bucket_build(order, pos, start, gains)
+        rng_state = np.array([rng.integers(1, 2 ** 63, dtype=np.int64)], dtype=np.uint64)
+        moves = _kernels.ascend_buckets(graph.indptr, graph.indices, graph.weights, x, gains,
+                                        order, pos, start, rng_state, limit)
+    else:
+        size = 1 << max(1, (n - 1).bit_length())
+        win = np.empty(2 * size, dtype=np.int64)
+        tie = rng.integers(0, np.iinfo(np.uint64).max, size=n, dtype=np.uint64, endpoint=True)
+        moves = _kernels.ascend_tree(graph.indptr, graph.indices, graph.weights, x, gains, tie,
+                                     win, size, gain_tolerance(graph), limit)
+    return int(moves), selection
+
+
+def descend(graph: SignedGraph, sides, *, rng=None, max_moves: int | None = None,
+            rule: str = "first", selection: str = "auto") -> tuple[np.ndarray, int]:
+    """Run one 1-flip descent from ``sides``: first or best improvement.
 
     Parameters
     ----------
@@ -58,9 +123,20 @@ def descend(graph: SignedGraph, sides, *, rng=None, max_moves: int | None = None
     sides : (n,) array_like of +-1
         The start; not modified.
     rng : None, int or numpy.random.Generator
-        Decides the order in which vertices are first examined.
+        With ``rule="first"`` decides the order in which vertices are first examined;
+        with ``rule="best"`` breaks ties between vertices of equal largest gain.
     max_moves : int, optional
         Stop after this many flips (no limit by default).
+    rule : {"first", "best"}
+        ``"first"``: flip any vertex whose flip raises the cut, examined from a work
+        queue (O(degree) per flip). ``"best"``: always flip a vertex of largest gain
+        (steepest ascent).
+    selection : {"auto", "buckets", "tree"}
+        How ``rule="best"`` finds the largest gain: gain buckets (whole-number weights
+        of size at most 16; O(degree) per flip) or a tournament tree (any weights;
+        O(degree log n) per flip). "auto" takes buckets when the weights allow. The
+        two break ties differently, so on graphs with tied gains they may end at
+        different local optima. Ignored by ``rule="first"``.
 
     Returns
     -------
@@ -76,29 +152,54 @@ def descend(graph: SignedGraph, sides, *, rng=None, max_moves: int | None = None
     >>> sides, moves = descend(triangle, [1, 1, 1], rng=0)
     >>> cut_value(triangle, sides)
     2.0
+
+    Steepest ascent on a star with one heavy edge flips the centre first:
+
+    >>> star = graph_from_edges(4, [0, 0, 0], [1, 2, 3], [1.0, 1.0, 2.5])
+    >>> sides, moves = descend(star, [1, 1, 1, 1], rule="best", rng=0)
+    >>> sides.tolist(), moves, cut_value(star, sides)
+    ([-1, 1, 1, 1], 1, 4.5)
     """
+    if rule not in RULES:
+        raise ValueError(f"rule must be one of {', '.join(RULES)}; got {rule!r}")
+    if selection not in _SELECTIONS:
+        raise ValueError(f"selection must be one of {', '.join(_SELECTIONS)}; got {selection!r}")
     x = validate_sides(graph, sides).copy()
     rng = np.random.default_rng(rng)
     gains = np.empty(graph.n_vertices, dtype=np.float64)
     _kernels.compute_gains(graph.indptr, graph.indices, graph.weights, x, gains)
-    order = rng.permutation(graph.n_vertices).astype(np.int64)
     limit = np.iinfo(np.int64).max if max_moves is None else int(max_moves)
+    if rule == "best":
+        moves, _ = _ascend(graph, x, gains, rng, limit, selection)
+        return x, moves
+    order = rng.permutation(graph.n_vertices).astype(np.int64)
     moves = _kernels.descend_1flip(graph.indptr, graph.indices, graph.weights, x, gains,
                                    order, gain_tolerance(graph), limit)
     return x, int(moves)
 
 
-def _solve_local(graph: SignedGraph, *, time_limit=None, rng=None, start=None) -> CutResult:
-    """One 1-flip descent from a random start (or ``start``): fast, always a local optimum."""
+def _solve_local(graph: SignedGraph, *, time_limit=None, rng=None, start=None,
+                 rule="first") -> CutResult:
+    """One 1-flip descent (``rule`` "first" or "best") from a random start, from
+    ``start="empty"`` (all vertices on side +1) or from a given ``start``: fast,
+    always a local optimum."""
+    if rule not in RULES:
+        raise ValueError(f"rule must be one of {', '.join(RULES)}; got {rule!r}")
     rng = np.random.default_rng(rng)
     if start is None:
         x0 = rng.choice(np.array([-1, 1], dtype=np.int8), size=graph.n_vertices)
+    elif isinstance(start, str):
+        if start != "empty":
+            raise ValueError(f"start must be None, 'empty' or an array of +-1; got {start!r}")
+        x0 = np.ones(graph.n_vertices, dtype=np.int8)
     else:
         x0 = validate_sides(graph, start)
-    sides, moves = descend(graph, x0, rng=rng)
+    sides, moves = descend(graph, x0, rng=rng, rule=rule)
     value = cut_value(graph, sides)
+    kind = "best" if rule == "best" else "first"
     return CutResult(sides=sides, value=value, upper_bound=None, gap=None, method="local",
-                     status="local_optimum", message=f"1-flip local optimum after {moves} flips",
+                     status="local_optimum",
+                     message=f"1-flip local optimum after {moves} flips ({kind} improvement)",
                      n_iter=moves)
 
 
