@@ -534,8 +534,15 @@ def _run_dask(tasks: Iterator[_Task], *, scheduler: str | None, dask_local: int 
 
     cluster = None
     if dask_local:
-        cluster = LocalCluster(n_workers=dask_local, threads_per_worker=1, processes=True,
-                               dashboard_address=None, silence_logs=50)
+        import dask
+
+        # workers of our own cluster: no statistical profiler sampling the compute thread
+        # every 10 ms, and a calmer event loop (both compete for the GIL with the split)
+        with dask.config.set({"distributed.worker.profile.enabled": False,
+                              "distributed.admin.tick.interval": "1s",
+                              "distributed.admin.system-monitor.interval": "5s"}):
+            cluster = LocalCluster(n_workers=dask_local, threads_per_worker=1, processes=True,
+                                   dashboard_address=None, silence_logs=50)
         client = Client(cluster)
     else:
         try:
