@@ -234,7 +234,11 @@ def _add_split_parser(sub) -> None:
                    help="seed marker image, or a folder of them matched by relative path or stem")
     p.add_argument("--superpixels", type=_positive_int, default=None, metavar="N",
                    help="number of superpixels (default: chosen from the image size)")
-    p.add_argument("--affinity", metavar="NAME", default=None, help="affinity model")
+    from segcut.affinity import available_affinity_models
+
+    p.add_argument("--affinity", metavar="NAME", default=None,
+                   help=f"affinity model: {', '.join(available_affinity_models())} "
+                        "(default: the config's)")
     _add_solver_options(p, default_method=None)
     p.add_argument("--seed", type=_non_negative_int, default=None,
                    help="random seed (default: the config's, 0); per-image seeds derive from it")
