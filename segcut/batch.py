@@ -629,7 +629,11 @@ def _atomic_write(path: Path, data: bytes) -> None:
 
 
 def _record_line(record: dict) -> bytes:
-    return (json.dumps(record, sort_keys=True, ensure_ascii=False, allow_nan=False) + "\n").encode()
+    text = json.dumps(record, sort_keys=True, ensure_ascii=False, allow_nan=False) + "\n"
+    try:
+        return text.encode("utf-8")
+    except UnicodeEncodeError:  # a file name that is not valid UTF-8: escape it in the JSON
+        return (json.dumps(record, sort_keys=True, allow_nan=False) + "\n").encode("ascii")
 
 
 def _compact_records(out_dir: Path, records: dict) -> None:
@@ -701,7 +705,7 @@ def _write_summary(out_dir: Path, records: dict) -> Path:
     for row in summary_rows(records):
         writer.writerow([_csv_value(row[c]) for c in SUMMARY_COLUMNS])
     path = out_dir / SUMMARY_NAME
-    _atomic_write(path, buffer.getvalue().encode("utf-8"))
+    _atomic_write(path, buffer.getvalue().encode("utf-8", errors="backslashreplace"))
     return path
 
 
@@ -773,7 +777,7 @@ def write_report(out_dir, *, title: str | None = None,
             row["thumbnail"] = _thumbnail_jpeg(out_dir / overlay, thumbnail_size)
     html = render_report(rows, title=title or out_dir.resolve().name)
     path = out_dir / REPORT_NAME
-    _atomic_write(path, html.encode("utf-8"))
+    _atomic_write(path, html.encode("utf-8", errors="xmlcharrefreplace"))
     return path
 
 

@@ -340,6 +340,23 @@ def test_bad_files_become_records_and_the_run_goes_on(tmp_path):
     assert (out / "report.html").is_file()
 
 
+def test_file_name_that_is_not_utf8_is_recorded_and_resumed(tmp_path):
+    src = tmp_path / "in"
+    src.mkdir()
+    name = os.fsdecode(b"caf\xe9.png")  # Latin-1 bytes: not valid UTF-8
+    try:
+        Image.fromarray(scene(0)[0]).save(src / name)
+    except (OSError, UnicodeError):
+        pytest.skip("this file system does not take file names that are not UTF-8")
+    out = tmp_path / "out"
+    first = run_batch([src], out, SplitConfig(), jobs=1, report=True)
+    assert first.done == 1 and first.failed == 0
+    assert list(load_records(out)) == [name]
+    (out / "records.jsonl").read_bytes().decode("utf-8")  # the log stays valid UTF-8
+    (out / "summary.csv").read_bytes().decode("utf-8")
+    assert run_batch([src], out, SplitConfig(), jobs=1, report=False).resumed == 1
+
+
 def test_multipage_tiff_stack_gets_a_tiff_mask(tmp_path):
     import tifffile
 
