@@ -992,7 +992,11 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
         seeds_hash = None
         if seeds_path is not None:
             if seeds_path not in seed_hashes:
-                seed_hashes[seeds_path] = hash_file(seeds_path)
+                try:
+                    seed_hashes[seeds_path] = hash_file(seeds_path)
+                except OSError as exc:
+                    raise InputError(f"cannot read the seed file ({exc.strerror or exc})",
+                                     path=seeds_path) from None
             seeds_hash = seed_hashes[seeds_path]
         old = records.get(item.input)
         input_hash = None  # hashed here only when an earlier result may be reused
