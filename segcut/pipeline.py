@@ -33,7 +33,7 @@ from .regions import describe_regions, region_adjacency, word_histograms
 from .superpixels import oversegment
 
 __all__ = ["ImageGraph", "SplitResult", "build_image_graph", "mask_to_sides", "split",
-           "ORIENTATIONS"]
+           "ORIENTATIONS", "CANONICAL_TRANSFORMS", "apply_transform", "canonical_transform"]
 
 #: What may decide which side is foreground (``SplitResult.orientation``).
 ORIENTATIONS = {
@@ -50,7 +50,8 @@ class ImageGraph:
     Attributes
     ----------
     labels : (M, N) or (P, M, N) int64 ndarray
-        Region (superpixel) of every pixel, consecutive from 0.
+        Region (superpixel) of every pixel, consecutive from 0, in the caller's
+        orientation (the regions were made in the canonical one).
     graph : SignedGraph
         Vertices are the free regions, then the terminal (when there is one).
     terminal : int or None
@@ -72,6 +73,9 @@ class ImageGraph:
     warnings : list of str
     seconds : dict
         Seconds per stage spent building the graph.
+    canonical_transform : str
+        The flip or turn (a key of :data:`CANONICAL_TRANSFORMS`) that took the image
+        to the orientation it was processed in (see :func:`split`, Notes).
     """
 
     labels: np.ndarray
@@ -85,6 +89,7 @@ class ImageGraph:
     start: np.ndarray
     warnings: list = field(default_factory=list)
     seconds: dict = field(default_factory=dict)
+    canonical_transform: str = "identity"
 
     @property
     def n_regions(self) -> int:
@@ -140,6 +145,9 @@ class SplitResult:
     seed : int or None
     image_graph : ImageGraph
         The graph that was solved.
+    canonical_transform : str
+        The flip or turn that took the image to the orientation it was processed
+        in (a key of :data:`CANONICAL_TRANSFORMS`; see :func:`split`, Notes).
     """
 
     mask: np.ndarray
@@ -156,6 +164,7 @@ class SplitResult:
     method: str
     seed: int | None = None
     image_graph: ImageGraph | None = field(default=None, repr=False)
+    canonical_transform: str = "identity"
 
     def to_record(self) -> dict:
         """The JSON-serialisable statistics of this split (no arrays).
@@ -164,7 +173,7 @@ class SplitResult:
         --------
         >>> r = split(np.eye(8), rng=0)
         >>> sorted(r.to_record())[:4]
-        ['cleanup', 'foreground_fraction', 'gap', 'method']
+        ['canonical_transform', 'cleanup', 'foreground_fraction', 'gap']
         """
         return {
             "value": float(self.value),
@@ -173,6 +182,7 @@ class SplitResult:
             "foreground_fraction": float(self.foreground_fraction),
             "n_superpixels": int(self.n_superpixels),
             "orientation": self.orientation,
+            "canonical_transform": self.canonical_transform,
             "method": self.method,
             "seed": self.seed,
             "seconds": {k: round(float(v), 6) for k, v in self.seconds.items()},
@@ -191,7 +201,12 @@ class SplitResult:
 # -- image preparation -----------------------------------------------------------------
 
 def _prepare(image, channel_axis):
-    """Image -> (values in [0, 1], features in CIELAB / 100*gray, warnings, has_contrast)."""
+    """Image -> (values in [0, 1], warnings, has_contrast).
+
+    Only exact operations that act on each pixel alone (indexing, IEEE arithmetic,
+    minimum and maximum, a fill value that does not depend on the pixel order), so
+    a flipped or rotated image gives the correspondingly moved values, bit for bit.
+    """
     arr = np.asarray(image)
     if arr.dtype == object or not (np.issubdtype(arr.dtype, np.number) or arr.dtype == bool):
         raise TypeError(f"image must be a numeric array; got dtype {arr.dtype}")
@@ -226,20 +241,193 @@ def _prepare(image, channel_axis):
             raise ValueError("image has no finite values (all NaN or infinite)")
         if not finite.all():
             n_bad = int(np.count_nonzero(~finite))
-            x = np.where(finite, x, np.mean(x[finite]))
+            # summed in sorted order: the same fill for any order of the pixels
+            fill = float(np.sum(np.sort(x[finite]))) / float(np.count_nonzero(finite))
+            x = np.where(finite, x, fill)
             warnings.append(f"{n_bad} non-finite value(s) replaced by the image mean")
         lo, hi = float(x.min()), float(x.max())
         if lo < 0.0 or hi > 1.0:
             x = (x - lo) / (hi - lo) if hi > lo else np.zeros_like(x)
     has_contrast = bool(np.ptp(x.reshape(-1, x.shape[-1]), axis=0).max() > 0)
+    if x.shape[-1] != 3:
+        x = x[..., :1]
+    return x, warnings, has_contrast
+
+
+def _features(x):
+    """Values in [0, 1] -> features: CIELAB for colour, 100 * gray otherwise."""
     if x.shape[-1] == 3:
         from skimage.color import rgb2lab
 
         feats = rgb2lab(np.clip(x, 0.0, 1.0), channel_axis=-1)
     else:
-        x = x[..., :1]
         feats = 100.0 * x
-    return x, np.ascontiguousarray(feats, dtype=np.float64), warnings, has_contrast
+    return np.ascontiguousarray(feats, dtype=np.float64)
+
+
+# -- canonical orientation -------------------------------------------------------------
+
+#: The eight flips and quarter turns of the image plane, in tie-break order. Entry
+#: ``(flip, k)`` maps an array ``a`` to ``np.rot90(np.flip(a, axis=col) if flip else a,
+#: k, axes=(row, col))`` (numpy's ``rot90`` turns counter-clockwise).
+CANONICAL_TRANSFORMS = {
+    "identity": (False, 0),
+    "rot90": (False, 1),
+    "rot180": (False, 2),
+    "rot270": (False, 3),
+    "flip_columns": (True, 0),
+    "transpose": (True, 1),
+    "flip_rows": (True, 2),
+    "anti_transpose": (True, 3),
+}
+
+# Blocks per side of the content signature (odd), and the levels values are rounded to.
+_KEY_BLOCKS = 9
+_KEY_LEVELS = 65535
+
+
+def apply_transform(array, name: str, *, axes=(-2, -1), inverse: bool = False) -> np.ndarray:
+    """Apply one of :data:`CANONICAL_TRANSFORMS` (or its inverse) to the plane ``axes``.
+
+    Parameters
+    ----------
+    array : ndarray
+    name : str
+        A key of :data:`CANONICAL_TRANSFORMS`.
+    axes : (int, int)
+        The row and column axes of the image plane.
+    inverse : bool
+        Apply the inverse transform instead.
+
+    Returns
+    -------
+    ndarray
+        A view of ``array`` (not a copy).
+
+    Examples
+    --------
+    >>> a = np.arange(6).reshape(2, 3)
+    >>> apply_transform(a, "transpose")
+    array([[0, 3],
+           [1, 4],
+           [2, 5]])
+    >>> np.array_equal(apply_transform(apply_transform(a, "rot90"), "rot90", inverse=True), a)
+    True
+    """
+    if name not in CANONICAL_TRANSFORMS:
+        raise ValueError(f"unknown transform {name!r}; choose one of "
+                         f"{', '.join(CANONICAL_TRANSFORMS)}")
+    flip, k = CANONICAL_TRANSFORMS[name]
+    row, col = axes
+    if inverse:
+        out = np.rot90(array, -k, axes=(row, col))
+        return np.flip(out, axis=col) if flip else out
+    out = np.flip(array, axis=col) if flip else array
+    return np.rot90(out, k, axes=(row, col))
+
+
+def _symmetric_edges(length, blocks):
+    """Block edges along one side, mirror-symmetric: ``edge[b - i] = length - edge[i]``.
+
+    ``blocks`` is odd, so the middle block is centred for odd and even lengths.
+    """
+    half = [(i * length) // blocks for i in range((blocks + 1) // 2)]
+    return np.array(half + [length - e for e in reversed(half)], dtype=np.int64)
+
+
+def _block_sums(values):
+    """Exact integer sums of rounded values over a mirror-symmetric grid of blocks.
+
+    ``values``: (M, N, C) or (P, M, N, C) in [0, 1]; returns (blocks, blocks, C) int64.
+    Integer sums have no round-off, and the grid is mirror-symmetric, so the sums of
+    a flipped or rotated image are the correspondingly moved sums, exactly.
+    """
+    q = (values * float(_KEY_LEVELS) + 0.5).astype(np.int64)  # round half up (values >= 0)
+    if q.ndim == 4:
+        q = q.sum(axis=0)
+    for axis in (0, 1):
+        edges = _symmetric_edges(q.shape[axis], _KEY_BLOCKS)
+        starts = np.minimum(edges[:-1], q.shape[axis] - 1)
+        q = np.add.reduceat(q, starts, axis=axis)
+        empty = edges[:-1] == edges[1:]
+        if empty.any():  # reduceat gives the start element for an empty block
+            index = [slice(None)] * q.ndim
+            index[axis] = empty
+            q[tuple(index)] = 0
+    return q
+
+
+def _lexicographic_less(a, b):
+    """True when array ``a`` comes before ``b`` in C order (first differing element)."""
+    a, b = a.ravel(), b.ravel()
+    differ = np.flatnonzero(a != b)
+    return bool(differ.size) and bool(a[differ[0]] < b[differ[0]])
+
+
+def canonical_transform(values) -> str:
+    """The transform that takes ``values`` to its canonical orientation.
+
+    Parameters
+    ----------
+    values : (M, N, C) or (P, M, N, C) ndarray
+        Image values in [0, 1], channels last (stacks: flips and turns of the
+        (M, N) plane only).
+
+    Returns
+    -------
+    str
+        A key of :data:`CANONICAL_TRANSFORMS`.
+
+    Notes
+    -----
+    Each of the eight views gets the key (spatial shape of the view, then the
+    integer sums of the values rounded to 65535 levels over an 9 x 9 grid of
+    mirror-symmetric blocks, channel by channel, in C order). The view with the
+    smallest key wins. Views whose keys tie are compared pixel by pixel (C order,
+    first differing value decides); views that are equal pixel for pixel (the
+    image has that symmetry) give the same canonical image, and the first of them
+    in :data:`CANONICAL_TRANSFORMS` order is named. Every step is exact, so
+    ``canonical_transform`` of a moved image names the view that leads to the same
+    canonical image.
+
+    Examples
+    --------
+    >>> a = np.zeros((4, 6, 1)); a[0, 0] = 1.0
+    >>> name = canonical_transform(a)
+    >>> moved = apply_transform(a, "rot90", axes=(0, 1))
+    >>> c1 = apply_transform(a, name, axes=(0, 1))
+    >>> c2 = apply_transform(moved, canonical_transform(moved), axes=(0, 1))
+    >>> np.array_equal(c1, c2)
+    True
+    """
+    values = np.asarray(values)
+    axes = (values.ndim - 3, values.ndim - 2)
+    sums = _block_sums(values)
+    keys = {}
+    for name in CANONICAL_TRANSFORMS:
+        view_shape = apply_transform(values[..., :1], name, axes=axes).shape[:-1]
+        block_view = apply_transform(sums, name, axes=(0, 1))
+        keys[name] = tuple(int(v) for v in view_shape) + tuple(block_view.ravel().tolist())
+    smallest = min(keys.values())
+    best = None
+    for name in CANONICAL_TRANSFORMS:
+        if keys[name] != smallest:
+            continue
+        if best is None or _lexicographic_less(apply_transform(values, name, axes=axes),
+                                               apply_transform(values, best, axes=axes)):
+            best = name
+    return best
+
+
+def _canonical_box(box, spatial, transform):
+    """A box ``(x0, y0, x1, y1)`` of the caller's frame, in the canonical frame."""
+    from .priors import box_map
+
+    inside = box_map(tuple(spatial[-2:]), box) == 0
+    inside = apply_transform(inside, transform)
+    rows = np.flatnonzero(inside.any(axis=1))
+    cols = np.flatnonzero(inside.any(axis=0))
+    return (int(cols[0]), int(rows[0]), int(cols[-1]) + 1, int(rows[-1]) + 1)
 
 
 def _normalise_seeds(seeds, spatial_shape):
@@ -354,18 +542,32 @@ def _vertex_start(region_fg, region_vertex, merged, terminal, n_vertices):
 def _build(image, config, seeds, channel_axis, rng):
     seconds = {}
     t0 = time.perf_counter()
-    values, feats, warnings, has_contrast = _prepare(image, channel_axis)
-    spatial = feats.shape[:-1]
-    seeds = _normalise_seeds(seeds, spatial)
-    seconds["prepare"] = time.perf_counter() - t0
+    values, warnings, has_contrast = _prepare(image, channel_axis)
+    caller_spatial = values.shape[:-1]
+    seeds = _normalise_seeds(seeds, caller_spatial)
     if not has_contrast:
-        labels = np.zeros(spatial, dtype=np.int64)
+        seconds["prepare"] = time.perf_counter() - t0
+        labels = np.zeros(caller_spatial, dtype=np.int64)
         g = graph_from_edges(1, [], [], [])
         warnings.append("image has no contrast: the mask is empty")
         return ImageGraph(labels=labels, graph=g, terminal=None,
                           region_vertex=np.zeros(1, np.int64), merged=np.zeros(1, np.int8),
                           offset=0.0, orientation="no_contrast", threshold=0.0,
                           start=-np.ones(1, np.int8), warnings=warnings, seconds=seconds)
+    # Everything below runs in the canonical orientation; the labels go back at the end.
+    t1 = time.perf_counter()
+    transform = canonical_transform(values)
+    plane = (values.ndim - 3, values.ndim - 2)
+    if transform != "identity":
+        values = np.ascontiguousarray(apply_transform(values, transform, axes=plane))
+        if seeds is not None:
+            seeds = np.ascontiguousarray(apply_transform(seeds, transform))
+        if config.box is not None:
+            config = config.replace(box=_canonical_box(config.box, caller_spatial, transform))
+    seconds["canonical"] = time.perf_counter() - t1
+    feats = _features(values)
+    spatial = feats.shape[:-1]
+    seconds["prepare"] = time.perf_counter() - t0 - seconds["canonical"]
 
     t0 = time.perf_counter()
     labels = oversegment(feats, n_superpixels=config.n_superpixels,
@@ -465,17 +667,19 @@ def _build(image, config, seeds, channel_axis, rng):
     if region_fg is None:
         region_fg = u > 0
     start = _vertex_start(region_fg, region_vertex, merged, terminal, g.n_vertices)
+    if transform != "identity":
+        labels = np.ascontiguousarray(apply_transform(labels, transform, inverse=True))
     seconds["graph"] = time.perf_counter() - t0
     return _image_graph(labels, g, terminal, region_vertex, merged, offset, orientation,
-                        threshold, start, warnings, seconds)
+                        threshold, start, warnings, seconds, transform)
 
 
 def _image_graph(labels, g, terminal, region_vertex, merged, offset, orientation, threshold,
-                 start, warnings, seconds):
+                 start, warnings, seconds, transform="identity"):
     return ImageGraph(labels=labels, graph=g, terminal=terminal, region_vertex=region_vertex,
                       merged=merged, offset=offset, orientation=orientation,
                       threshold=float(threshold), start=np.asarray(start, dtype=np.int8),
-                      warnings=warnings, seconds=seconds)
+                      warnings=warnings, seconds=seconds, canonical_transform=transform)
 
 
 def build_image_graph(image, config: SplitConfig | None = None, *, seeds=None,
@@ -693,6 +897,23 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     rounds and from a Goemans-Williamson rounding, with a move budget of 20 moves
     per vertex (deterministic).
 
+    Canonical orientation: superpixels and the search follow the pixel order, so
+    the image is processed in an orientation chosen from its content alone: of its
+    eight flips and quarter turns (:data:`CANONICAL_TRANSFORMS`; for 3-D stacks
+    those of the (M, N) plane) the one with the smallest key (spatial shape, then
+    exact sums of the values over an 9 x 9 grid of mirror-symmetric blocks, then
+    the values pixel by pixel), see :func:`canonical_transform`. Seeds and the
+    ``box`` (given in the caller's frame) are moved along; the border and center
+    priors are laid out in the canonical frame. The labels and mask are moved back,
+    and the transform is recorded as ``canonical_transform``. Hence for every flip
+    or quarter turn ``T``, ``split(T(image)).mask == T(split(image).mask)`` bit for
+    bit, with the same value and upper bound (same graph, same vertex order).
+    Exception: an image that equals one of its own flips or turns ``S`` (exact
+    symmetry) has several equally canonical views; they are the same array, so the
+    graph, value and bound are still the same, but the mask may come back as
+    ``T(S(split(image).mask))`` rather than ``T(split(image).mask)``, since no
+    rule on the content can tell ``image`` from ``S(image)``.
+
     Examples
     --------
     >>> image = np.zeros((30, 30, 3)); image[8:22, 8:22] = (0.9, 0.2, 0.1)
@@ -714,7 +935,8 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
                            foreground_fraction=0.0, n_superpixels=1, orientation="no_contrast",
                            seconds=seconds, warnings=warnings,
                            cleanup={"value_before": 0.0, "value_after": 0.0, "pixels_changed": 0},
-                           method="none", seed=_seed_record(seed), image_graph=ig)
+                           method="none", seed=_seed_record(seed), image_graph=ig,
+                           canonical_transform=ig.canonical_transform)
     t0 = time.perf_counter()
     method, sides, value_before, bound = _solve(ig, config, generator)
     seconds["solve"] = time.perf_counter() - t0
@@ -737,7 +959,8 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
         warnings=warnings,
         cleanup={"value_before": float(value_before), "value_after": float(value_after),
                  "pixels_changed": changed},
-        method=method, seed=_seed_record(seed), image_graph=ig)
+        method=method, seed=_seed_record(seed), image_graph=ig,
+        canonical_transform=ig.canonical_transform)
 
 
 def _frame_pixels(labels):
