@@ -381,7 +381,7 @@ def canonical_transform(values) -> str:
     Notes
     -----
     Each of the eight views gets the key (spatial shape of the view, then the
-    integer sums of the values rounded to 65535 levels over an 9 x 9 grid of
+    integer sums of the values rounded to 65535 levels over a 9 x 9 grid of
     mirror-symmetric blocks, channel by channel, in C order). The view with the
     smallest key wins. Views whose keys tie are compared pixel by pixel (C order,
     first differing value decides); views that are equal pixel for pixel (the
@@ -901,7 +901,7 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     the image is processed in an orientation chosen from its content alone: of its
     eight flips and quarter turns (:data:`CANONICAL_TRANSFORMS`; for 3-D stacks
     those of the (M, N) plane) the one with the smallest key (spatial shape, then
-    exact sums of the values over an 9 x 9 grid of mirror-symmetric blocks, then
+    exact sums of the values over a 9 x 9 grid of mirror-symmetric blocks, then
     the values pixel by pixel), see :func:`canonical_transform`. Seeds and the
     ``box`` (given in the caller's frame) are moved along; the border and center
     priors are laid out in the canonical frame. The labels and mask are moved back,
