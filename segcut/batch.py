@@ -34,7 +34,12 @@ Guarantees
   one-line ``error`` naming the file; the run goes on.
 - **Deterministic.** Each image's random seed is derived from the configuration's
   seed and the image's content hash (:func:`image_seed`), never from worker order, so
-  a serial run, a process pool and a Dask cluster write the same mask bytes.
+  a serial run, a process pool and a Dask cluster write the same mask bytes. (A
+  solver ``time_limit`` lets the clock decide where a search stops; results then may
+  differ between runs.)
+- **Inputs are named by their relative path**, so one run folder is meant for one
+  collection: running another folder that holds ``x.png`` into the same run folder
+  redoes ``x.png`` (its content differs) and replaces its outputs.
 
 Executors
 ---------
