@@ -60,15 +60,23 @@ def _add_seed_option(parser) -> None:
                         help="random seed; the same seed gives the same output (default 0)")
 
 
-def _add_solver_options(parser, *, default_method: str | None) -> None:
+def _add_solver_options(parser, *, default_method: str | None, extra_methods=()) -> None:
     from segcut.maxcut import available_methods
 
-    methods = available_methods()
-    listing = "; ".join(f"{name}: {m.description}" for name, m in methods.items())
+    names = [*extra_methods, *available_methods()]
+    default = f"default {default_method}" if default_method else "default: the config's"
     parser.add_argument("--method", default=default_method, metavar="NAME",
-                        help=f"max-cut method ({listing})")
+                        help=f"max-cut method: {', '.join(names)} ({default})")
     parser.add_argument("--time-limit", type=_positive_float, default=None, metavar="S",
                         help="seconds the solver may use")
+
+
+def _methods_epilog() -> str:
+    from segcut.maxcut import available_methods
+
+    lines = ["max-cut methods:"]
+    lines += [f"  {name:8s} {m.description}" for name, m in available_methods().items()]
+    return "\n".join(lines)
 
 
 # --- maxcut -------------------------------------------------------------------------
@@ -77,7 +85,9 @@ def _add_maxcut_parser(sub) -> None:
     p = sub.add_parser("maxcut", help="solve max-cut on a graph file",
                        description="Solve max-cut on a graph file (edge list 'n m / i j w', "
                                    "or GraphML) and print the cut value, the certified upper "
-                                   "bound and the gap.")
+                                   "bound and the gap.",
+                       epilog=_methods_epilog(),
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("graph", metavar="GRAPHFILE", help="edge-list (.txt, any other suffix) or .graphml file")
     _add_solver_options(p, default_method="tabu")
     _add_seed_option(p)
@@ -139,7 +149,7 @@ def _add_compare_parser(sub) -> None:
         "compare", help="agreement of predicted masks with reference masks",
         description="Compare predicted masks with reference masks: IoU, Dice, precision, "
                     "recall, boundary F-measure, Hausdorff distance and average symmetric "
-                    "surface distance per image; means with bootstrap 95%% intervals per "
+                    "surface distance per image; means with bootstrap 95% intervals per "
                     "prediction set; sets ranked side by side, and the best two compared "
                     "image by image. PRED and REF may be files or folders (matched by file "
                     "stem; each prediction folder is one set). Masks: 0 is background, "
@@ -239,7 +249,7 @@ def _add_split_parser(sub) -> None:
     p.add_argument("--affinity", metavar="NAME", default=None,
                    help=f"affinity model: {', '.join(available_affinity_models())} "
                         "(default: the config's)")
-    _add_solver_options(p, default_method=None)
+    _add_solver_options(p, default_method=None, extra_methods=("auto",))
     p.add_argument("--seed", type=_non_negative_int, default=None,
                    help="random seed (default: the config's, 0); per-image seeds derive from it")
     p.add_argument("--jobs", "-j", type=_positive_int, default=None, metavar="N",

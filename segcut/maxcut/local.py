@@ -188,9 +188,10 @@ def descend(graph: SignedGraph, sides, *, rng=None, max_moves: int | None = None
 
 def _solve_local(graph: SignedGraph, *, time_limit=None, rng=None, start=None,
                  rule="first") -> CutResult:
-    """One 1-flip descent (``rule`` "first" or "best") from a random start, from
-    ``start="empty"`` (all vertices on side +1) or from a given ``start``: fast,
-    always a local optimum."""
+    """One 1-flip descent, first or best improvement: fast, always a 1-flip local optimum.
+
+    It starts from a random split, from ``start="empty"`` (all vertices on side +1)
+    or from a given ``start``."""
     if rule not in RULES:
         raise ValueError(f"rule must be one of {', '.join(RULES)}; got {rule!r}")
     rng = np.random.default_rng(rng)
