@@ -42,6 +42,7 @@ SECTIONS = {
     "model_rounds": "appearance",
     "model_strength": "appearance",
     "start_clusters": "appearance",
+    "model_starts": "appearance",
     "method": "solver",
     "time_limit": "solver",
     "max_moves": "solver",
@@ -105,6 +106,13 @@ class SplitConfig:
         With no prior and no seeds, the region colours are grouped in this many
         clusters and the clusters rarer on the image frame than in the image start
         as foreground (0 or 1: a 2-means split oriented by the border rule).
+    model_starts : int
+        With no prior and no seeds, the colour-model rounds run from this many
+        distinct starts (the frame-shy clusters above, a 2-means split, frame-shy
+        clusters of more colour words) and the end point whose foreground avoids
+        the image frame most (share of the frame pixels over share of the area) is
+        kept; 1 runs from the first start only (see :func:`segcut.pipeline.split`,
+        Notes).
     method : str
         Max-cut method; ``"auto"`` takes tabu search warm-started from the SDP
         relaxation when available, otherwise the best registered method.
@@ -147,6 +155,7 @@ class SplitConfig:
     model_rounds: int = 3
     model_strength: float = 1.0
     start_clusters: int = 4
+    model_starts: int = 4
     method: str = "auto"
     time_limit: float | None = None
     max_moves: int | None = None
@@ -333,6 +342,7 @@ def _validate(cfg: SplitConfig) -> None:
     number("model_rounds", lo=0, integer=True)
     number("model_strength", lo=0)
     number("start_clusters", lo=0, integer=True)
+    number("model_starts", lo=1, integer=True)
     number("time_limit", lo=0, lo_open=True, allow_none=True)
     number("max_moves", lo=1, integer=True, allow_none=True)
     number("min_region_size", lo=0, integer=True)
