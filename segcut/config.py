@@ -108,8 +108,9 @@ class SplitConfig:
         as foreground (0 or 1: a 2-means split oriented by the border rule).
     model_starts : int
         With no prior and no seeds, the colour-model rounds run from this many
-        distinct starts (the frame-shy clusters above, a 2-means split, frame-shy
-        clusters of more colour words) and the end point whose foreground avoids
+        distinct starts (the frame-shy clusters above, the regions inside the
+        central box of ``center_fraction``, a 2-means split, frame-shy clusters
+        of more colour words) and the end point whose foreground avoids
         the image frame most (share of the frame pixels over share of the area) is
         kept; 1 runs from the first start only (see :func:`segcut.pipeline.split`,
         Notes).
@@ -155,7 +156,7 @@ class SplitConfig:
     model_rounds: int = 3
     model_strength: float = 1.0
     start_clusters: int = 4
-    model_starts: int = 4
+    model_starts: int = 2
     method: str = "auto"
     time_limit: float | None = None
     max_moves: int | None = None

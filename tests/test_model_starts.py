@@ -123,3 +123,27 @@ def test_model_starts_config():
         SplitConfig(model_starts=0)
     with pytest.raises(ConfigError, match="model_starts must be an integer"):
         SplitConfig.from_toml('[appearance]\nmodel_starts = "four"\n')
+
+
+@pytest.mark.parametrize("n_starts", [1, 2, 3, 5])
+def test_start_hypotheses_are_distinct_and_two_sided(n_starts):
+    """At most ``n_starts`` starts, the central regions second, no two alike, and
+    neither side empty in any start after the first."""
+    from segcut.pipeline import _start_hypotheses
+    from segcut.regions import describe_regions
+
+    image, _ = _scene(4, shape=(24, 30))
+    labels = np.arange(24 * 30).reshape(24, 30)  # one region per pixel
+    regions = describe_regions(labels, 100.0 * image, n_colour_words=6)
+    yy, xx = np.mgrid[:24, :30]
+    central = ((np.abs(yy - 11.5) < 5) & (np.abs(xx - 14.5) < 6)).ravel()
+    starts = _start_hypotheses(regions, 4, n_starts, central=central)
+    assert 1 <= len(starts) <= n_starts
+    if n_starts >= 2:
+        assert np.array_equal(starts[1], central)
+    for i, a in enumerate(starts):
+        assert a.shape == (24 * 30,) and a.dtype == bool
+        if i:
+            assert a.any() and not a.all()
+        for b in starts[:i]:
+            assert not np.array_equal(a, b)

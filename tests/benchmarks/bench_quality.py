@@ -192,8 +192,9 @@ def main(argv=None) -> int:
         rows = [r for r in rows if r[1] != "segcut"]
         if rows:
             print()
-    print(header)
-    print("-" * len(header))
+    if rows:
+        print(header)
+        print("-" * len(header))
     for label, runner, config in rows:
         ious, fs, secs, gaps, nsp = [], [], [], [], []
         for name, image, ref in images:
