@@ -22,6 +22,7 @@ from typing import Callable
 
 import numpy as np
 
+from ._plugins import load_plugins
 from .regions import RegionAdjacency, RegionFeatures
 
 __all__ = [
@@ -85,7 +86,7 @@ def available_affinity_models() -> dict[str, AffinityModel]:
     global _LOADED
     if not _LOADED:
         _LOADED = True
-        _load_plugins(ENTRY_POINT_GROUP, _MODELS, AffinityModel, register_affinity_model)
+        load_plugins(ENTRY_POINT_GROUP, _MODELS, AffinityModel, register_affinity_model)
     return dict(sorted(_MODELS.items()))
 
 
@@ -219,25 +220,3 @@ register_affinity_model(
 register_affinity_model("contrast", _contrast_distance)
 register_affinity_model("histogram", _histogram_distance)
 register_affinity_model("mixed", _mixed_distance)
-
-
-def _load_plugins(group, registry, kind, register):
-    from importlib.metadata import entry_points
-
-    for ep in entry_points(group=group):
-        if ep.name in registry:
-            continue
-        try:
-            obj = ep.load()
-        except Exception as err:  # a broken plugin must not break segcut
-            import warnings
-
-            from .errors import SegcutWarning
-
-            warnings.warn(f"plugin {ep.name!r} of {group} ({ep.value}) failed to load: {err}",
-                          SegcutWarning, stacklevel=3)
-            continue
-        if isinstance(obj, kind):
-            registry[ep.name] = obj
-        else:
-            register(ep.name, obj)

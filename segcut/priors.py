@@ -21,6 +21,8 @@ from typing import Callable
 
 import numpy as np
 
+from ._plugins import load_plugins
+
 __all__ = [
     "ENTRY_POINT_GROUP",
     "SEED_UNKNOWN",
@@ -89,9 +91,7 @@ def available_priors() -> dict[str, PriorModel]:
     global _LOADED
     if not _LOADED:
         _LOADED = True
-        from .affinity import _load_plugins
-
-        _load_plugins(ENTRY_POINT_GROUP, _PRIORS, PriorModel, register_prior)
+        load_plugins(ENTRY_POINT_GROUP, _PRIORS, PriorModel, register_prior)
     return dict(sorted(_PRIORS.items()))
 
 

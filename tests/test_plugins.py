@@ -111,6 +111,6 @@ def test_broken_plugin_warns_and_is_skipped(tmp_path, monkeypatch):
     monkeypatch.syspath_prepend(str(site))
     importlib.invalidate_caches()
     monkeypatch.setattr(_common, "_ENTRY_POINTS_LOADED", False)
-    with pytest.warns(SegcutWarning, match="max-cut plugin 'ghost'"):
+    with pytest.warns(SegcutWarning, match="plugin 'ghost' of segcut.maxcut_methods"):
         methods = available_methods()
     assert "ghost" not in methods and "tabu" in methods

@@ -11,6 +11,7 @@ from typing import Callable
 
 import numpy as np
 
+from .._plugins import load_plugins
 from ..graph import SignedGraph, as_signed_graph, cut_value
 
 __all__ = [
@@ -190,28 +191,9 @@ def unregister_method(name: str) -> None:
 
 def _load_entry_points() -> None:
     global _ENTRY_POINTS_LOADED
-    if _ENTRY_POINTS_LOADED:
-        return
-    _ENTRY_POINTS_LOADED = True
-    from importlib.metadata import entry_points
-
-    for ep in entry_points(group=ENTRY_POINT_GROUP):
-        if ep.name in _REGISTRY:
-            continue
-        try:
-            obj = ep.load()
-        except Exception as err:  # a broken plugin must not break segcut
-            import warnings
-
-            from ..errors import SegcutWarning
-
-            warnings.warn(f"max-cut plugin {ep.name!r} ({ep.value}) failed to load: {err}",
-                          SegcutWarning, stacklevel=3)
-            continue
-        if isinstance(obj, MaxcutMethod):
-            _REGISTRY[ep.name] = replace(obj, name=ep.name)
-        else:
-            register_method(ep.name, obj)
+    if not _ENTRY_POINTS_LOADED:
+        _ENTRY_POINTS_LOADED = True
+        load_plugins(ENTRY_POINT_GROUP, _REGISTRY, MaxcutMethod, register_method)
 
 
 def available_methods() -> dict[str, MaxcutMethod]:
