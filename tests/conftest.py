@@ -6,10 +6,18 @@ root); tests that need it are skipped, with the reason, when it is absent.
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import settings
+
+# No per-example deadline anywhere (numba compiles kernels on first use); in CI the
+# examples are derived from each test's name, so a run is reproducible.
+settings.register_profile("segcut", deadline=None)
+settings.register_profile("segcut-ci", deadline=None, derandomize=True, database=None)
+settings.load_profile("segcut-ci" if os.environ.get("CI") else "segcut")
 
 PROJECT_ROOT = Path(__file__).resolve().parent.parent
 SHARED_DATA = PROJECT_ROOT.parent / "shared" / "data"
