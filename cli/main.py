@@ -8,6 +8,7 @@ Exit codes: 0 all done; 1 some inputs failed (the rest finished); 2 usage error;
 from __future__ import annotations
 
 import argparse
+import math
 import os
 import sys
 import tempfile
@@ -30,24 +31,39 @@ class _Parser(argparse.ArgumentParser):
         raise SystemExit(EXIT_USAGE)
 
 
-def _positive_float(text: str) -> float:
+def _number(text: str, cast, *, minimum, strict: bool = False):
+    """Parse a finite number >= ``minimum`` (> when ``strict``) for argparse."""
+    what = "a whole number" if cast is int else "a number"
     try:
-        value = float(text)
+        value = cast(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not value > 0 or value == float("inf"):
-        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
+        raise argparse.ArgumentTypeError(f"expected {what}, got {text!r}") from None
+    if not math.isfinite(value):
+        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
+    if value < minimum or (strict and value == minimum):
+        wanted = "a positive number" if strict else f"a number >= {minimum:g}"
+        raise argparse.ArgumentTypeError(f"expected {wanted}, got {text!r}")
     return value
+
+
+def _positive_float(text: str) -> float:
+    return _number(text, float, minimum=0.0, strict=True)
+
+
+def _non_negative_float(text: str) -> float:
+    return _number(text, float, minimum=0.0)
+
+
+def _finite_float(text: str) -> float:
+    return _number(text, float, minimum=-math.inf)
 
 
 def _non_negative_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected a number >= 0, got {text!r}")
-    return value
+    return _number(text, int, minimum=0)
+
+
+def _positive_int(text: str) -> int:
+    return _number(text, int, minimum=1)
 
 
 def _add_json_option(parser) -> None:
@@ -182,31 +198,7 @@ def _run_compare(args) -> int:
                    per_image=args.per_image, as_json=args.json, csv_path=args.csv_path)
 
 
-def _non_negative_float(text: str) -> float:
-    value = _finite_float(text)
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected a number >= 0, got {text!r}")
-    return value
-
-
-def _finite_float(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if value != value or value in (float("inf"), float("-inf")):
-        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
-    return value
-
-
 # --- split and report -----------------------------------------------------------------
-
-def _positive_int(text: str) -> int:
-    value = _non_negative_int(text)
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a number >= 1, got {text!r}")
-    return value
-
 
 def _box(text: str) -> tuple:
     parts = text.split(",")
