@@ -6,6 +6,24 @@ import dataclasses
 import warnings
 
 
+def check_new_name(registry: dict, name, what: str, *, replace_existing: bool = False) -> None:
+    """Refuse an empty or non-string ``name``, or one already in ``registry``.
+
+    ``what`` names the kind in messages ("max-cut method", "prior", ...).
+    """
+    if not isinstance(name, str) or not name or name != name.strip():
+        raise ValueError(f"{what} name must be a non-empty string; got {name!r}")
+    if name in registry and not replace_existing:
+        raise ValueError(f"{what} {name!r} is already registered")
+
+
+def first_doc_line(func) -> str:
+    """The first line of ``func``'s docstring ('' without one), for listings."""
+    import inspect
+
+    return (inspect.getdoc(func) or "").strip().split("\n")[0]
+
+
 def load_plugins(group: str, registry: dict, kind: type, register) -> None:
     """Add the objects of entry-point ``group`` to ``registry``.
 

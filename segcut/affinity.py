@@ -22,7 +22,7 @@ from typing import Callable
 
 import numpy as np
 
-from ._plugins import load_plugins
+from ._plugins import check_new_name, first_doc_line, load_plugins
 from .regions import RegionAdjacency, RegionFeatures
 
 __all__ = [
@@ -64,12 +64,8 @@ _LOADED = False
 def register_affinity_model(name: str, distance: Callable, *, description: str = "",
                             replace_existing: bool = False) -> AffinityModel:
     """Register a region distance under ``name`` (see :class:`AffinityModel`)."""
-    if not isinstance(name, str) or not name:
-        raise ValueError(f"affinity model name must be a non-empty string; got {name!r}")
-    if name in _MODELS and not replace_existing:
-        raise ValueError(f"an affinity model named {name!r} is already registered")
-    if not description:
-        description = ((distance.__doc__ or "").strip().split("\n") or [""])[0]
+    check_new_name(_MODELS, name, "affinity model", replace_existing=replace_existing)
+    description = description or first_doc_line(distance)
     model = AffinityModel(name=name, distance=distance, description=description)
     _MODELS[name] = model
     return model

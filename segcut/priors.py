@@ -21,7 +21,7 @@ from typing import Callable
 
 import numpy as np
 
-from ._plugins import load_plugins
+from ._plugins import check_new_name, first_doc_line, load_plugins
 
 __all__ = [
     "ENTRY_POINT_GROUP",
@@ -69,12 +69,8 @@ _LOADED = False
 def register_prior(name: str, pixel_map: Callable, *, description: str = "",
                    replace_existing: bool = False) -> PriorModel:
     """Register a pixel prior under ``name`` (see :class:`PriorModel`)."""
-    if not isinstance(name, str) or not name:
-        raise ValueError(f"prior name must be a non-empty string; got {name!r}")
-    if name in _PRIORS and not replace_existing:
-        raise ValueError(f"a prior named {name!r} is already registered")
-    if not description:
-        description = ((pixel_map.__doc__ or "").strip().split("\n") or [""])[0]
+    check_new_name(_PRIORS, name, "prior", replace_existing=replace_existing)
+    description = description or first_doc_line(pixel_map)
     model = PriorModel(name=name, pixel_map=pixel_map, description=description)
     _PRIORS[name] = model
     return model

@@ -8,13 +8,15 @@ graphs of up to about 20 vertices.
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 
 from segcut.graph import as_signed_graph
 from segcut.maxcut import STATUSES, CutResult
 
-__all__ = ["assert_valid_cut", "brute_force_maxcut", "reference_cut_value", "reference_gains"]
+__all__ = ["NUMPY_TRANSFORMS", "SHARED_DATA", "assert_valid_cut", "brute_force_maxcut", "reference_cut_value",
+           "reference_gains"]
 
 
 def reference_cut_value(graph, sides) -> float:
@@ -119,3 +121,20 @@ def brute_force_maxcut(graph) -> tuple[float, np.ndarray]:
             best_sides = sides[k].copy()
     return best_value, best_sides
 
+
+#: Public reference data (G-set graphs, dev photographs): ``../shared/data`` beside the
+#: project root. Tests that need it skip, with the reason, when it is absent.
+SHARED_DATA = Path(__file__).resolve().parents[1].parent / "shared" / "data"
+
+#: The 8 flips and quarter turns of the square, written with plain numpy; each acts on
+#: the first two axes (rows, columns) and channels ride along.
+NUMPY_TRANSFORMS = {
+    "identity": lambda a: a,
+    "rot90": lambda a: np.rot90(a, 1),
+    "rot180": lambda a: np.rot90(a, 2),
+    "rot270": lambda a: np.rot90(a, 3),
+    "flip_columns": np.fliplr,
+    "transpose": lambda a: np.swapaxes(a, 0, 1),
+    "flip_rows": np.flipud,
+    "anti_transpose": lambda a: np.swapaxes(a[::-1, ::-1], 0, 1),
+}

@@ -13,14 +13,14 @@ import numpy as np
 import pytest
 from hypothesis import settings
 
+from checks import SHARED_DATA
+
 # No per-example deadline anywhere (numba compiles kernels on first use); in CI the
 # examples are derived from each test's name, so a run is reproducible.
 settings.register_profile("segcut", deadline=None)
 settings.register_profile("segcut-ci", deadline=None, derandomize=True, database=None)
 settings.load_profile("segcut-ci" if os.environ.get("CI") else "segcut")
 
-PROJECT_ROOT = Path(__file__).resolve().parent.parent
-SHARED_DATA = PROJECT_ROOT.parent / "shared" / "data"
 TEST_DATA = Path(__file__).resolve().parent / "data"
 
 

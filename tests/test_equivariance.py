@@ -8,13 +8,12 @@ and ``.T`` (the outside reference for what each transform does), not with segcut
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from checks import NUMPY_TRANSFORMS, SHARED_DATA
 from segcut.config import SplitConfig
 from segcut.graph import cut_value
 from segcut.pipeline import (
@@ -27,19 +26,8 @@ from segcut.pipeline import (
 )
 from segcut.scoring import score
 
-DEV_IMAGES = Path(__file__).resolve().parents[1].parent / "shared" / "data" / "horses-dev"
+DEV_IMAGES = SHARED_DATA / "horses-dev"
 
-# Each transform acts on the first two axes (rows, columns); channels ride along.
-NUMPY_TRANSFORMS = {
-    "identity": lambda a: a,
-    "rot90": lambda a: np.rot90(a, 1),
-    "rot180": lambda a: np.rot90(a, 2),
-    "rot270": lambda a: np.rot90(a, 3),
-    "flip_columns": np.fliplr,
-    "transpose": lambda a: np.swapaxes(a, 0, 1),
-    "flip_rows": np.flipud,
-    "anti_transpose": lambda a: np.swapaxes(a[::-1, ::-1], 0, 1),
-}
 
 FAST = SplitConfig(method="local")
 

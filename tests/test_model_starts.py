@@ -15,20 +15,11 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from checks import NUMPY_TRANSFORMS
 from segcut.config import SplitConfig
 from segcut.errors import ConfigError
 from segcut.pipeline import _frame_shyness, build_image_graph, split
 
-NUMPY_TRANSFORMS = {
-    "identity": lambda a: a,
-    "rot90": lambda a: np.rot90(a, 1),
-    "rot180": lambda a: np.rot90(a, 2),
-    "rot270": lambda a: np.rot90(a, 3),
-    "flip_columns": np.fliplr,
-    "transpose": lambda a: np.swapaxes(a, 0, 1),
-    "flip_rows": np.flipud,
-    "anti_transpose": lambda a: np.swapaxes(a[::-1, ::-1], 0, 1),
-}
 
 FAST = SplitConfig(method="local", model_starts=4)
 

@@ -11,7 +11,7 @@ from typing import Callable
 
 import numpy as np
 
-from .._plugins import load_plugins
+from .._plugins import check_new_name, first_doc_line, load_plugins
 from ..graph import SignedGraph, as_signed_graph, cut_value
 
 __all__ = [
@@ -168,16 +168,12 @@ def register_method(name: str, solve: Callable, *, options=None, description: st
     'Put every vertex on side +1.'
     >>> unregister_method("everything_left")
     """
-    if not isinstance(name, str) or not name or name != name.strip():
-        raise ValueError(f"method name must be a non-empty string; got {name!r}")
-    if name in _REGISTRY and not replace_existing:
-        raise ValueError(f"a max-cut method named {name!r} is already registered")
+    check_new_name(_REGISTRY, name, "max-cut method", replace_existing=replace_existing)
     if options is None:
         params = inspect.signature(solve).parameters.values()
         options = [p.name for p in params
                    if p.kind == p.KEYWORD_ONLY and p.name not in ("time_limit", "rng")]
-    if not description:
-        description = (inspect.getdoc(solve) or "").strip().split("\n")[0]
+    description = description or first_doc_line(solve)
     method = MaxcutMethod(name=name, solve=solve, options=frozenset(options),
                           description=description)
     _REGISTRY[name] = method
