@@ -247,6 +247,38 @@ def tabu_init(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, win
 
 
 @njit(cache=True)
+def _keep_pending_best(istate, sides, best_sides):
+    """Copy ``sides`` into ``best_sides`` when a new best is pending."""
+    if istate[TS_PENDING] == 1:
+        for k in range(sides.shape[0]):
+            best_sides[k] = sides[k]
+        istate[TS_PENDING] = 0
+
+
+@njit(cache=True)
+def _make_tabu(v, t, tabu, tabu_until, tenure_base, tenure_spread, rng_state):
+    """Forbid flipping ``v`` back for a tenure drawn in base..base+spread; returns it."""
+    tenure = tenure_base
+    if tenure_spread > 0:
+        tenure += rand_below(rng_state, tenure_spread + 1)
+    tabu[v] = 1
+    tabu_until[v] = t + 1 + tenure
+    return tenure
+
+
+@njit(cache=True)
+def _record_move(istate, fstate, current, t, improvement):
+    """Book the move made at step ``t``; a value above the best by ``improvement`` is a new best."""
+    fstate[TS_CURRENT] = current
+    istate[TS_MOVE] = t + 1
+    if current > fstate[TS_BEST] + improvement:
+        fstate[TS_BEST] = current
+        istate[TS_LAST_BEST] = t + 1
+        istate[TS_PENDING] = 1
+        istate[TS_BEST_AT_PERTURB] = 1
+
+
+@njit(cache=True)
 def _perturb(indptr, indices, weights, sides, gains, best_sides, istate, fstate, rng_state,
              min_strength, max_strength, flipped):
     """Return to the best sides and flip ``istate[TS_STRENGTH]`` random vertices.
@@ -258,10 +290,7 @@ def _perturb(indptr, indices, weights, sides, gains, best_sides, istate, fstate,
     how many were flipped.
     """
     n = sides.shape[0]
-    if istate[TS_PENDING] == 1:
-        for k in range(n):
-            best_sides[k] = sides[k]
-        istate[TS_PENDING] = 0
+    _keep_pending_best(istate, sides, best_sides)
     if istate[TS_BEST_AT_PERTURB] == 1 or istate[TS_N_PERTURB] == 0:
         istate[TS_STRENGTH] = min_strength
     else:
@@ -296,11 +325,7 @@ def _tabu_after_jump(flipped, count, tabu, tabu_until, heap_t, heap_v, t, tenure
         v = flipped[k]
         if tabu[v] == 1 or hs >= heap_t.shape[0]:
             continue
-        tenure = tenure_base
-        if tenure_spread > 0:
-            tenure += rand_below(rng_state, tenure_spread + 1)
-        tabu[v] = 1
-        tabu_until[v] = t + 1 + tenure
+        tenure = _make_tabu(v, t, tabu, tabu_until, tenure_base, tenure_spread, rng_state)
         hs = _heap_push(heap_t, heap_v, hs, t + 1 + tenure, v)
     return hs
 
@@ -384,11 +409,9 @@ def tabu_search(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, w
             v = a
         else:
             v = b
-        if istate[TS_PENDING] == 1 and gains[v] <= tol:
+        if gains[v] <= tol:
             # the current sides are the best seen and are about to get worse: keep them
-            for k in range(n):
-                best_sides[k] = sides[k]
-            istate[TS_PENDING] = 0
+            _keep_pending_best(istate, sides, best_sides)
 
         # make the move
         current += gains[v]
@@ -406,11 +429,7 @@ def tabu_search(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, w
         sides[v] = -xi
         gains[v] = -gains[v]
         tie[v] = rand_u64(rng_state)
-        tenure = tenure_base
-        if tenure_spread > 0:
-            tenure += rand_below(rng_state, tenure_spread + 1)
-        tabu[v] = 1
-        tabu_until[v] = t + 1 + tenure
+        tenure = _make_tabu(v, t, tabu, tabu_until, tenure_base, tenure_spread, rng_state)
         if hs >= heap_t.shape[0]:
             # cannot happen when the heap holds tenure_base + tenure_spread + 3 entries;
             # kept as a guard: end the oldest tenure early
@@ -428,18 +447,9 @@ def tabu_search(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, w
             tree_update(win_free, size, v, gains, tie, tabu, 0)
             tree_update(win_tabu, size, v, gains, tie, tabu, 1)
 
-        fstate[TS_CURRENT] = current
-        istate[TS_MOVE] = t + 1
+        _record_move(istate, fstate, current, t, tol)
         done += 1
-        if current > fstate[TS_BEST] + tol:
-            fstate[TS_BEST] = current
-            istate[TS_LAST_BEST] = t + 1
-            istate[TS_PENDING] = 1
-            istate[TS_BEST_AT_PERTURB] = 1
-    if istate[TS_PENDING] == 1:
-        for k in range(n):
-            best_sides[k] = sides[k]
-        istate[TS_PENDING] = 0
+    _keep_pending_best(istate, sides, best_sides)
     return done
 
 
@@ -660,10 +670,8 @@ def tabu_search_buckets(indptr, indices, weights, sides, gains, tie, tabu, tabu_
             v = a
         else:
             v = b
-        if istate[TS_PENDING] == 1 and gains[v] <= 0.5:
-            for k in range(n):
-                best_sides[k] = sides[k]
-            istate[TS_PENDING] = 0
+        if gains[v] <= 0.5:
+            _keep_pending_best(istate, sides, best_sides)
 
         current += gains[v]
         xi = sides[v]
@@ -685,11 +693,7 @@ def tabu_search_buckets(indptr, indices, weights, sides, gains, tie, tabu, tabu_
         sides[v] = -xi
         gains[v] = -gains[v]
         tie[v] = rand_u64(rng_state)
-        tenure = tenure_base
-        if tenure_spread > 0:
-            tenure += rand_below(rng_state, tenure_spread + 1)
-        tabu[v] = 1
-        tabu_until[v] = t + 1 + tenure
+        tenure = _make_tabu(v, t, tabu, tabu_until, tenure_base, tenure_spread, rng_state)
         if hs >= heap_t.shape[0]:
             u = heap_v[0]
             expiry = heap_t[0]
@@ -703,19 +707,10 @@ def tabu_search_buckets(indptr, indices, weights, sides, gains, tie, tabu, tabu_
         hs = _heap_push(heap_t, heap_v, hs, t + 1 + tenure, v)
         istate[TS_HEAP_SIZE] = hs
 
-        fstate[TS_CURRENT] = current
-        istate[TS_MOVE] = t + 1
+        _record_move(istate, fstate, current, t, 0.5)
         done += 1
-        if current > fstate[TS_BEST] + 0.5:
-            fstate[TS_BEST] = current
-            istate[TS_LAST_BEST] = t + 1
-            istate[TS_PENDING] = 1
-            istate[TS_BEST_AT_PERTURB] = 1
     istate[TS_TOP] = top
-    if istate[TS_PENDING] == 1:
-        for k in range(n):
-            best_sides[k] = sides[k]
-        istate[TS_PENDING] = 0
+    _keep_pending_best(istate, sides, best_sides)
     return done
 
 
