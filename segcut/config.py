@@ -171,7 +171,7 @@ class SplitConfig:
     model_starts: int = 2
     refine: bool = True
     refine_band: int | None = None
-    refine_smoothness: float = 2.0
+    refine_smoothness: float = 8.0
     method: str = "auto"
     time_limit: float | None = None
     max_moves: int | None = None

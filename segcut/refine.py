@@ -108,7 +108,7 @@ def _band(mask, llr, width, free):
     return near & free
 
 
-def refine_boundary(features, mask, words, n_words, *, band=3, smoothness=2.0,
+def refine_boundary(features, mask, words, n_words, *, band=3, smoothness=8.0,
                     strength=1.0, free=None) -> RefineResult:
     """Refine ``mask`` at pixel level near its boundary (see the module notes).
 
