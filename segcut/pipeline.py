@@ -346,7 +346,8 @@ def _appearance_stage(problem, labels, regions, adjacency, features, priors, con
     outcomes = [(name, run_model_rounds(problem, group.astype(float), (~group).astype(float),
                                         rounds, generator))
                 for name, group in hypotheses]
-    index, rule, disagreement = choose_end_point(outcomes, regions, adjacency)
+    index, rule, disagreement = choose_end_point(outcomes, regions, adjacency,
+                                                 problem.word_counts)
     name, (fg_w, bg_w, region_fg) = outcomes[index]
     return fg_w, bg_w, region_fg, name, rule, disagreement
 
