@@ -136,6 +136,18 @@ def write_mask_layer(path: str, data, attributes: dict) -> list:
     """Write a Labels layer as a segcut mask: 0 background, 255 foreground (npe2 writer hook).
 
     Every non-zero label is foreground. 2-D masks go to PNG or TIFF, 3-D masks to TIFF.
+    A mask that cannot be written gives a one-line notification and no file.
+
+    Returns
+    -------
+    list of str
+        The file written (empty when nothing was written).
     """
-    segcut.write_mask(np.asarray(data) != 0, os.fspath(path))
+    from napari.utils.notifications import show_error
+
+    try:
+        segcut.write_mask(np.asarray(data) != 0, os.fspath(path))
+    except (ValueError, OSError, segcut.SegcutError) as exc:
+        show_error(f"segcut: {os.fspath(path)}: {one_line(exc)}")
+        return []
     return [os.fspath(path)]

@@ -16,6 +16,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 ON_CI = bool(os.environ.get("CI"))
 if not ON_CI:
@@ -210,6 +212,29 @@ def test_box_and_point_seeds_map_to_image_pixels(make_napari_viewer):
     seeds = points_seeds(points, image, (50, 60))
     assert seeds[10, 4] == 1 and seeds[30, 20] == 2
     assert np.count_nonzero(seeds) == 2  # the third point lies outside the image
+
+
+@settings(max_examples=25, deadline=None)
+@given(image_scale=st.tuples(st.floats(0.25, 4.0), st.floats(0.25, 4.0)),
+       image_shift=st.tuples(st.floats(-50, 50), st.floats(-50, 50)),
+       shapes_scale=st.tuples(st.floats(0.25, 4.0), st.floats(0.25, 4.0)),
+       shapes_shift=st.tuples(st.floats(-50, 50), st.floats(-50, 50)),
+       rows=st.tuples(st.integers(0, 29), st.integers(0, 29)),
+       cols=st.tuples(st.integers(0, 39), st.integers(0, 39)))
+def test_box_follows_the_layers_transforms(image_scale, image_shift, shapes_scale, shapes_shift,
+                                           rows, cols):
+    # Invariant: a rectangle drawn through two pixel centres (in world coordinates, on a
+    # Shapes layer with its own scale and shift) gives the box of exactly those pixels,
+    # whatever the two layers' transforms (world = scale * data + shift, common knowledge
+    # for napari's affine layer transforms).
+    image = napari.layers.Image(np.zeros((30, 40)), scale=image_scale, translate=image_shift)
+    corners_px = np.array([[rows[0], cols[0]], [rows[1], cols[1]]], dtype=float)
+    world = corners_px * np.array(image_scale) + np.array(image_shift)
+    data = (world - np.array(shapes_shift)) / np.array(shapes_scale)
+    shapes = napari.layers.Shapes([data], shape_type="rectangle", scale=shapes_scale,
+                                  translate=shapes_shift)
+    expected = (min(cols), min(rows), max(cols) + 1, max(rows) + 1)
+    assert box_from_shapes(shapes, image, (30, 40)) == expected
 
 
 def test_reader_round_trips_a_run_folder(make_napari_viewer, tmp_path):
