@@ -17,8 +17,8 @@ import numpy as np
 import segcut
 
 __all__ = ["PRIORS", "SEED_FEATURE", "ImageInput", "box_from_shapes", "image_input", "image_rng",
-           "source_file",
-           "labels_seeds", "make_config", "one_line", "points_seeds", "seeds_from_layer"]
+           "labels_seeds", "make_config", "one_line", "panel_choices", "points_seeds",
+           "seeds_from_layer", "source_file"]
 
 #: Choices of the prior box, and the ``SplitConfig.prior`` each one gives.
 PRIORS = {
@@ -220,12 +220,14 @@ def image_rng(layer, seed: int) -> int:
     return image_seed(int(seed), hash_file(path))
 
 
-def make_config(*, prior: str = "none", box=None, n_superpixels: int = 0,
-                affinity: str = "colour", prior_strength: float = 2.0, fill_holes: bool = False,
-                min_region_size: int = 0, seed: int = 0) -> segcut.SplitConfig:
+def make_config(*, base: segcut.SplitConfig | None = None, prior: str = "none", box=None,
+                n_superpixels: int = 0, affinity: str = "colour", prior_strength: float = 2.0,
+                fill_holes: bool = False, min_region_size: int = 0,
+                seed: int = 0) -> segcut.SplitConfig:
     """The :class:`segcut.SplitConfig` of the widget's choices.
 
-    ``n_superpixels=0`` lets segcut choose from the image size.
+    ``base`` gives every option the panel does not show (defaults when None), and its
+    box when ``box`` is None; ``n_superpixels=0`` lets segcut choose from the image size.
 
     Examples
     --------
@@ -234,8 +236,28 @@ def make_config(*, prior: str = "none", box=None, n_superpixels: int = 0,
     """
     if prior not in PRIORS:
         raise ValueError(f"prior {prior!r} is not one of {', '.join(PRIORS)}")
-    return segcut.SplitConfig(
-        prior=PRIORS[prior], box=None if box is None else tuple(int(v) for v in box),
+    base = segcut.SplitConfig() if base is None else base
+    return base.replace(
+        prior=PRIORS[prior], box=base.box if box is None else tuple(int(v) for v in box),
         n_superpixels=int(n_superpixels) or None, affinity=affinity,
         prior_strength=float(prior_strength), fill_holes=bool(fill_holes),
         min_region_size=int(min_region_size), seed=int(seed))
+
+
+def panel_choices(config: segcut.SplitConfig) -> dict:
+    """The widget's choices that give ``config`` back through :func:`make_config`.
+
+    Examples
+    --------
+    >>> cfg = segcut.SplitConfig(prior=("center", "border"), n_superpixels=400, seed=7)
+    >>> make_config(base=cfg, **panel_choices(cfg)) == cfg.replace(prior=("border", "center"))
+    True
+    """
+    wanted = set(config.prior)
+    prior = next((name for name, value in PRIORS.items() if set(value) == wanted), None)
+    if prior is None:
+        raise ValueError(f"prior {config.prior!r} has no choice in the panel")
+    return {"prior": prior, "n_superpixels": config.n_superpixels or 0,
+            "affinity": config.affinity, "prior_strength": config.prior_strength,
+            "fill_holes": config.fill_holes, "min_region_size": config.min_region_size,
+            "seed": config.seed}

@@ -9,6 +9,8 @@ notification.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import napari.layers
 import numpy as np
 from napari.qt.threading import thread_worker
@@ -42,6 +44,7 @@ from ._inputs import (
     image_rng,
     make_config,
     one_line,
+    panel_choices,
     seeds_from_layer,
 )
 
@@ -113,6 +116,7 @@ class SplitWidget(QWidget):
         self.last_score = None
         self.busy = False
         self.worker = None
+        self.base_config = segcut.SplitConfig()
         layout = QVBoxLayout(self)
         layout.addWidget(self._input_group())
         layout.addWidget(self._settings_group())
@@ -153,6 +157,19 @@ class SplitWidget(QWidget):
     def _settings_group(self) -> QGroupBox:
         group = QGroupBox("Settings")
         form = QFormLayout(group)
+        self.settings_source = QLabel("defaults")
+        self.run_settings_button = QPushButton("From the run")
+        self.run_settings_button.setToolTip("Take every setting from the run folder the image "
+                                            "layer was opened from (its run.toml)")
+        self.run_settings_button.clicked.connect(self.use_run_settings)
+        self.default_settings_button = QPushButton("Defaults")
+        self.default_settings_button.clicked.connect(
+            lambda: self.set_settings(segcut.SplitConfig(), "defaults"))
+        source_row = QHBoxLayout()
+        source_row.addWidget(self.settings_source, 1)
+        source_row.addWidget(self.run_settings_button)
+        source_row.addWidget(self.default_settings_button)
+        form.addRow("from", source_row)
         self.superpixels = _spin_box(0, 100000, 0, special="auto")
         self.affinity = QComboBox()
         self.affinity.addItems(_affinity_names())
@@ -260,10 +277,40 @@ class SplitWidget(QWidget):
         layer.mode = "paint"
         self.seeds_choice.setCurrentText(layer.name)
 
+    # -- settings ------------------------------------------------------------------------
+    def set_settings(self, config: segcut.SplitConfig, source: str) -> None:
+        """Show ``config`` in the panel; options the panel has no field for come from it too."""
+        choices = panel_choices(config)
+        self.base_config = config
+        self.settings_source.setText(source)
+        self.prior_choice.setCurrentText(choices["prior"])
+        self.superpixels.setValue(int(choices["n_superpixels"]))
+        if self.affinity.findText(choices["affinity"]) < 0:
+            self.affinity.addItem(choices["affinity"])
+        self.affinity.setCurrentText(choices["affinity"])
+        self.prior_strength.setValue(float(choices["prior_strength"]))
+        self.random_seed.setValue(int(choices["seed"]))
+        self.fill_holes.setChecked(bool(choices["fill_holes"]))
+        self.min_region_size.setValue(int(choices["min_region_size"]))
+
+    def use_run_settings(self) -> None:
+        """Take the settings of the run folder the chosen image layer was opened from."""
+        layer = self._layer(self.image_choice.currentText())
+        meta = {} if layer is None else layer.metadata.get(METADATA_KEY) or {}
+        try:
+            if not meta.get("config"):
+                raise ValueError(f"image layer {getattr(layer, 'name', '')!r} was not opened "
+                                 "from a segcut run folder")
+            folder = meta.get("run_folder", "run folder")
+            self.set_settings(segcut.SplitConfig.from_toml(meta["config"]),
+                              f"run {Path(folder).name}")
+        except (ValueError, TypeError, segcut.SegcutError) as exc:
+            show_error(f"segcut: {one_line(exc)}")
+
     # -- the inputs of a run -------------------------------------------------------------
     def current_config(self, box=None) -> segcut.SplitConfig:
         """The config of the panel's choices (``box`` from the box layer, if any)."""
-        return make_config(prior=self.prior_choice.currentText(), box=box,
+        return make_config(base=self.base_config, prior=self.prior_choice.currentText(), box=box,
                            n_superpixels=self.superpixels.value(),
                            affinity=self.affinity.currentText(),
                            prior_strength=self.prior_strength.value(),

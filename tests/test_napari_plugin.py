@@ -237,13 +237,14 @@ def test_box_follows_the_layers_transforms(image_scale, image_shift, shapes_scal
     assert box_from_shapes(shapes, image, (30, 40)) == expected
 
 
-def test_reader_round_trips_a_run_folder(make_napari_viewer, tmp_path):
+def test_reader_round_trips_a_run_folder(make_napari_viewer, qtbot, tmp_path, errors):
     inputs = tmp_path / "images"
     inputs.mkdir()
     for name in ("oak_gray.png", "ivy_nir.tif"):
         shutil.copy(IMAGES / name, inputs / name)
     run = tmp_path / "run"
-    assert cli_main(["split", str(inputs), "-o", str(run)]) == 0
+    assert cli_main(["split", str(inputs), "-o", str(run), "--prior", "border,center",
+                     "--seed", "5"]) == 0
     records = load_records(run)
     viewer = make_napari_viewer()
     layers = viewer.open(str(run), plugin="segcut")
@@ -258,7 +259,19 @@ def test_reader_round_trips_a_run_folder(make_napari_viewer, tmp_path):
                                       segcut.read_image(inputs / file).array)
         assert mask_layer.metadata["segcut"]["record"] == records[file]
         assert mask_layer.metadata["segcut"]["record"]["seed"] == image_seed(
-            0, hash_file(inputs / file))
+            5, hash_file(inputs / file))
+    # The run's settings in the widget split the run's image into the run's mask again.
+    widget = _widget_for(viewer)
+    widget.image_choice.setCurrentText("oak_gray")
+    widget.use_run_settings()
+    assert (widget.prior_choice.currentText(), widget.random_seed.value()) == (
+        "border and center", 5)
+    _run(qtbot, widget, widget.run_split)
+    np.testing.assert_array_equal(_labels_named(viewer, "oak_gray split")[0].data != 0,
+                                  segcut.read_mask(run / "masks" / "oak_gray.png"))
+    assert float(widget.numbers["cut value"].text()) == pytest.approx(
+        records["oak_gray.png"]["value"], rel=1e-9)
+    assert errors == []
     # The writer: a Labels layer saved as .png reads back as the same mask (0 / 255).
     out = tmp_path / "saved.png"
     viewer.layers.selection = {viewer.layers["oak_gray mask"]}
