@@ -126,6 +126,9 @@ class SplitWidget(QWidget):
         events = self.viewer.layers.events
         for event in (events.inserted, events.removed, events.moved):
             event.connect(self.refresh_layers)
+        events.inserted.connect(self._watch_name)
+        for layer in self.viewer.layers:
+            layer.events.name.connect(self.refresh_layers)
         self.refresh_layers()
 
     # -- building the panel ------------------------------------------------------------
@@ -231,6 +234,9 @@ class SplitWidget(QWidget):
     def _layers_of(self, *kinds) -> list:
         classes = tuple(getattr(napari.layers, kind) for kind in kinds)
         return [layer for layer in self.viewer.layers if isinstance(layer, classes)]
+
+    def _watch_name(self, event) -> None:
+        event.value.events.name.connect(self.refresh_layers)
 
     def refresh_layers(self, event=None) -> None:
         """Fill the layer choices from the viewer, keeping the current choices."""
