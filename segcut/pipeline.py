@@ -848,73 +848,26 @@ def mask_to_sides(image_graph: ImageGraph, mask) -> tuple[np.ndarray, float]:
 
 # -- solving ---------------------------------------------------------------------------
 
-# Default move budget of search methods: enough to polish an SDP rounding on
-# superpixel graphs, deterministic (the budget, not the clock, ends the search).
-_MOVES_PER_VERTEX = 20
-
-
-# Relative accuracy of the SDP relaxation behind the certificate of method "auto".
-_SDP_TOL = 1e-3
-
-
 def _solve(ig: ImageGraph, config: SplitConfig, generator):
-    """Solve the image graph; returns (method, sides, value, upper_bound).
+    """Solve the image graph with ``config.method``; returns (method, sides, value, upper_bound).
 
-    ``method="auto"``: the SDP relaxation gives the certified bound (when the "sdp"
-    method is installed), its Goemans-Williamson rounding one candidate split; tabu
-    search (or a 1-flip descent) from the colour-model rounds' split and from the
-    rounding, with a deterministic move budget, gives the answer. Any other method
-    name goes to :func:`~segcut.maxcut.solve_maxcut` as it is.
+    A method that declares ``warm_start`` searches from the split of the colour-model
+    rounds; one that takes ``max_moves`` gets ``config.max_moves`` (by default 20
+    moves per vertex). ``"auto"`` is the portfolio of :mod:`segcut.maxcut.auto`.
     """
-    methods = available_methods()
-    graph = ig.graph
-    budget = (config.max_moves if config.max_moves is not None
-              else _MOVES_PER_VERTEX * graph.n_vertices)
-    if config.method != "auto":
-        spec = methods.get(config.method)
-        options = {}
-        if spec is not None:
-            if "start" in spec.options:
-                options["start"] = ig.start
-            if "max_moves" in spec.options:
-                options["max_moves"] = budget
-        result = solve_maxcut(graph, method=config.method, time_limit=config.time_limit,
-                              rng=generator, **options)
-        # keep the better of the solver's split and the rounds' split (polished);
-        # the bound holds for the graph whichever split is reported
-        sides, value = _local_best(graph, [result.sides, ig.start], generator)
-        if result.value >= value:
-            sides, value = result.sides, result.value
-        return config.method, sides, value, result.upper_bound
+    from .maxcut import get_method
+    from .maxcut.auto import MOVES_PER_VERTEX
 
-    starts = [ig.start]
-    bound = None
-    name = "local"
-    if "sdp" in methods and graph.n_edges > 0:
-        from .maxcut.sdp import round_hyperplanes, solve_sdp_relaxation
-
-        relaxation = solve_sdp_relaxation(graph, tol=_SDP_TOL, time_limit=config.time_limit,
-                                          rng=generator)
-        if relaxation.certified:
-            bound = float(relaxation.upper_bound)
-        starts.append(round_hyperplanes(graph, relaxation.factor, n_hyperplanes=_HYPERPLANES,
-                                        rng=generator))
-        name = "sdp"
-    if "tabu" in methods:
-        best, best_value = None, -np.inf
-        for start in starts:
-            result = solve_maxcut(graph, method="tabu", rng=generator, start=start,
-                                  max_moves=budget)
-            if best is None or result.value > best_value:
-                best, best_value = result.sides, result.value
-        name = "tabu+" + name if name == "sdp" else "tabu"
-        return name, best, best_value, bound
-    sides, value = _local_best(graph, starts, generator)
-    return name, sides, value, bound
-
-
-# Random hyperplanes of the Goemans-Williamson rounding in method "auto".
-_HYPERPLANES = 20
+    spec = get_method(config.method)
+    options = {}
+    if spec.warm_start:
+        options["start"] = ig.start
+    if "max_moves" in spec.options:
+        options["max_moves"] = (config.max_moves if config.max_moves is not None
+                                else MOVES_PER_VERTEX * ig.graph.n_vertices)
+    result = solve_maxcut(ig.graph, method=config.method, time_limit=config.time_limit,
+                          rng=generator, **options)
+    return result.method, result.sides, result.value, result.upper_bound
 
 
 def _clean(mask, config):

@@ -22,6 +22,7 @@ from . import local  # noqa: F401  (registers "local")
 from . import tabu  # noqa: F401,E402  (registers "tabu", the default)
 from . import exact  # noqa: F401,E402  (registers "exact")
 from . import sdp  # noqa: F401,E402  (registers "sdp")
+from . import auto  # noqa: F401,E402  (registers "auto", the portfolio)
 
 __all__ = [
     "CutResult",

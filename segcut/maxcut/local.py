@@ -212,4 +212,4 @@ def _solve_local(graph: SignedGraph, *, time_limit=None, rng=None, start=None,
                      n_iter=moves)
 
 
-register_method("local", _solve_local)
+register_method("local", _solve_local, warm_start=True)

@@ -64,6 +64,9 @@ from ._common import CutResult, register_method
 from .local import descend
 
 __all__ = [
+    "SdpSettings",
+    "THOROUGH",
+    "QUICK",
     "SdpSolution",
     "SDP_STATUSES",
     "solve_sdp_relaxation",
@@ -80,6 +83,31 @@ SDP_STATUSES = {
     "iteration_limit": "max_sweeps ran out (or the sweeps stalled) before the gap reached tol",
     "time_limit": "the time limit stopped the sweeps before the gap reached tol",
 }
+
+
+
+@dataclass(frozen=True)
+class SdpSettings:
+    """How hard the relaxation is solved and how many roundings are tried.
+
+    Attributes
+    ----------
+    tol : float
+        Target certified relative gap between the bound and the relaxation value.
+    n_hyperplanes : int
+        Random hyperplanes of the Goemans-Williamson rounding.
+    """
+
+    tol: float
+    n_hyperplanes: int
+
+
+#: Settings of method ``"sdp"`` and of the SDP start of method ``"tabu"``.
+THOROUGH = SdpSettings(tol=1e-4, n_hyperplanes=100)
+#: Settings of method ``"auto"`` (run on every image of a split, and behind the
+#: bound of :func:`segcut.score`): a bound within 1e-3 of the relaxation, and a
+#: few roundings as starts for tabu search, which does the rest.
+QUICK = SdpSettings(tol=1e-3, n_hyperplanes=20)
 
 _EPS = float(np.finfo(np.float64).eps)
 _DENSE_LIMIT = 3000        # largest n certified with a dense Cholesky factorisation
@@ -441,7 +469,7 @@ def _positive_weight_bound(graph: SignedGraph) -> float:
     return float(np.nextafter(math.fsum(w[w > 0]) / 2.0, math.inf))
 
 
-def solve_sdp_relaxation(graph, *, tol: float = 1e-4, max_sweeps: int = 20000,
+def solve_sdp_relaxation(graph, *, tol: float = THOROUGH.tol, max_sweeps: int = 20000,
                          rank: int | None = None, time_limit: float | None = None,
                          rng=None) -> SdpSolution:
     """Solve the max-cut semidefinite relaxation in low rank, with a certified bound.
@@ -637,7 +665,8 @@ def _hyperplane_signs(graph: SignedGraph, factor: np.ndarray, n_hyperplanes: int
     return signs, values
 
 
-def hyperplane_cut_values(graph, factor, *, n_hyperplanes: int = 100, rng=None) -> np.ndarray:
+def hyperplane_cut_values(graph, factor, *, n_hyperplanes: int = THOROUGH.n_hyperplanes,
+                          rng=None) -> np.ndarray:
     """Cut values of Goemans-Williamson roundings by random hyperplanes (no polish).
 
     Vertex ``i`` goes to side ``sign(<v_i, r>)`` for a Gaussian normal vector ``r``;
@@ -672,7 +701,7 @@ def hyperplane_cut_values(graph, factor, *, n_hyperplanes: int = 100, rng=None) 
     return _hyperplane_signs(graph, factor, n_hyperplanes, np.random.default_rng(rng))[1]
 
 
-def round_hyperplanes(graph, factor, *, n_hyperplanes: int = 100, rng=None,
+def round_hyperplanes(graph, factor, *, n_hyperplanes: int = THOROUGH.n_hyperplanes, rng=None,
                       polish: bool = True, n_polish: int = 8) -> np.ndarray:
     """Goemans-Williamson rounding of a factor by many random hyperplanes at once.
 
@@ -724,8 +753,9 @@ def round_hyperplanes(graph, factor, *, n_hyperplanes: int = 100, rng=None,
 
 # --------------------------------------------------------------------------- the method
 
-def _solve_sdp(graph: SignedGraph, *, time_limit=None, rng=None, tol: float = 1e-4,
-               max_sweeps: int = 20000, rank: int | None = None, n_hyperplanes: int = 100,
+def _solve_sdp(graph: SignedGraph, *, time_limit=None, rng=None, tol: float = THOROUGH.tol,
+               max_sweeps: int = 20000, rank: int | None = None,
+               n_hyperplanes: int = THOROUGH.n_hyperplanes,
                polish: bool = True) -> CutResult:
     """SDP relaxation with a certified upper bound, Goemans-Williamson rounding and 1-flip polish."""
     tol = _check_tol(tol)

@@ -76,8 +76,10 @@ def _sdp_start(graph: SignedGraph, *, time_limit, rng):
     """Rounded, 1-flip polished SDP start and the certified bound."""
     from . import sdp  # noqa: PLC0415 - optional at import time, the SDP side is separate
 
-    solution = sdp.solve_sdp_relaxation(graph, tol=1e-4, time_limit=time_limit, rng=rng)
-    sides = sdp.round_hyperplanes(graph, solution.factor, n_hyperplanes=100, rng=rng)
+    solution = sdp.solve_sdp_relaxation(graph, tol=sdp.THOROUGH.tol, time_limit=time_limit,
+                                        rng=rng)
+    sides = sdp.round_hyperplanes(graph, solution.factor,
+                                  n_hyperplanes=sdp.THOROUGH.n_hyperplanes, rng=rng)
     sides, _ = descend(graph, sides, rng=rng)
     return sides, float(solution.upper_bound)
 
@@ -319,4 +321,4 @@ def _solve_tabu(graph: SignedGraph, *, time_limit=None, rng=None, max_moves=None
                            "stopped_by": info["reason"]})
 
 
-register_method("tabu", _solve_tabu)
+register_method("tabu", _solve_tabu, warm_start=True)
