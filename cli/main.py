@@ -105,7 +105,7 @@ def _add_maxcut_parser(sub) -> None:
                        epilog=_methods_epilog(),
                        formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("graph", metavar="GRAPHFILE", help="edge-list (.txt, any other suffix) or .graphml file")
-    _add_solver_options(p, default_method="tabu")
+    _add_solver_options(p, default_method="auto")
     _add_seed_option(p)
     _add_json_option(p)
     p.add_argument("-o", "--out", metavar="SIDES_FILE", default=None,
@@ -241,7 +241,7 @@ def _add_split_parser(sub) -> None:
     p.add_argument("--affinity", metavar="NAME", default=None,
                    help=f"affinity model: {', '.join(available_affinity_models())} "
                         "(default: the config's)")
-    _add_solver_options(p, default_method=None, extra_methods=("auto",))
+    _add_solver_options(p, default_method=None)
     p.add_argument("--seed", type=_non_negative_int, default=None,
                    help="random seed (default: the config's, 0); per-image seeds derive from it")
     p.add_argument("--jobs", "-j", type=_positive_int, default=None, metavar="N",
