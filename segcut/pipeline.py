@@ -855,18 +855,10 @@ def _solve(ig: ImageGraph, config: SplitConfig, generator):
     rounds; one that takes ``max_moves`` gets ``config.max_moves`` (by default 20
     moves per vertex). ``"auto"`` is the portfolio of :mod:`segcut.maxcut.auto`.
     """
-    from .maxcut import get_method
-    from .maxcut.auto import MOVES_PER_VERTEX
+    from .maxcut.auto import solve_warm
 
-    spec = get_method(config.method)
-    options = {}
-    if spec.warm_start:
-        options["start"] = ig.start
-    if "max_moves" in spec.options:
-        options["max_moves"] = (config.max_moves if config.max_moves is not None
-                                else MOVES_PER_VERTEX * ig.graph.n_vertices)
-    result = solve_maxcut(ig.graph, method=config.method, time_limit=config.time_limit,
-                          rng=generator, **options)
+    result = solve_warm(ig.graph, method=config.method, start=ig.start,
+                        max_moves=config.max_moves, time_limit=config.time_limit, rng=generator)
     return result.method, result.sides, result.value, result.upper_bound
 
 

@@ -25,7 +25,7 @@ from ._common import CutResult, register_method, solve_maxcut
 from .local import gain_tolerance
 from .tabu import default_max_moves
 
-__all__ = ["MOVES_PER_VERTEX", "SDP_TIME_SHARE", "certify", "portfolio"]
+__all__ = ["MOVES_PER_VERTEX", "SDP_TIME_SHARE", "certify", "portfolio", "solve_warm"]
 
 #: Move budget per vertex of each tabu search that the image pipeline asks for
 #: (enough to polish an SDP rounding on superpixel graphs).
@@ -33,6 +33,46 @@ MOVES_PER_VERTEX = 20
 
 #: Share of ``time_limit`` given to the relaxation when a time limit is set.
 SDP_TIME_SHARE = 0.5
+
+
+def solve_warm(graph, *, method: str, start, max_moves: int | None = None,
+               time_limit: float | None = None, rng=None) -> CutResult:
+    """Solve with ``method``, searching from ``start`` when the method declares ``warm_start``.
+
+    This is how :func:`segcut.split` solves an image's graph and how
+    :func:`segcut.score` computes its bound, so both give the same bound for the
+    same graph, config and seed.
+
+    Parameters
+    ----------
+    graph : SignedGraph
+    method : str
+        A registered method.
+    start : (n,) array_like of +-1
+        Handed to methods that declare ``warm_start``; others ignore it.
+    max_moves : int, optional
+        Move budget for methods that take ``max_moves``; by default
+        :data:`MOVES_PER_VERTEX` per vertex.
+    time_limit : float, optional
+    rng : None, int or numpy.random.Generator
+
+    Examples
+    --------
+    >>> from segcut.graph import graph_from_edges
+    >>> square = graph_from_edges(4, [0, 1, 2, 3], [1, 2, 3, 0])
+    >>> solve_warm(square, method="auto", start=[1, 1, 1, 1], rng=0).value
+    4.0
+    """
+    from ._common import get_method
+
+    spec = get_method(method)
+    options = {}
+    if spec.warm_start:
+        options["start"] = start
+    if "max_moves" in spec.options:
+        options["max_moves"] = (MOVES_PER_VERTEX * graph.n_vertices if max_moves is None
+                                else max_moves)
+    return solve_maxcut(graph, method=method, time_limit=time_limit, rng=rng, **options)
 
 
 def certify(graph: SignedGraph, *, rng, time_limit: float | None = None,
@@ -111,7 +151,7 @@ def _solve_auto(graph: SignedGraph, *, time_limit=None, rng=None, start=None,
     clock = time.perf_counter()
     sdp_time = None if time_limit is None else SDP_TIME_SHARE * time_limit
     relaxation = certify(graph, rng=rng, time_limit=sdp_time)
-    bound = None
+    bound = 0.0 if graph.n_edges == 0 else None  # without edges every cut is 0
     if relaxation is not None:
         if relaxation.certified:
             bound = float(relaxation.upper_bound)
