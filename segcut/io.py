@@ -51,8 +51,8 @@ Notes collected while reading are returned in :attr:`ImageData.warnings`; nothin
 emitted through :mod:`warnings`, so the caller decides how to report them.
 
 :func:`read_mask` reads a two-region mask (ours, or a reference) as a boolean array,
-and :func:`read_seeds` reads a marker image into the labels 0 unknown, 1 foreground,
-2 background.
+and :func:`read_seeds` reads a marker image (a trimap: white foreground, mid-gray
+unknown, black background) into the labels 0 unknown, 1 foreground, 2 background.
 
 Writing
 -------
@@ -79,7 +79,7 @@ from typing import Iterator
 
 import numpy as np
 
-from .errors import InputError, SegcutError
+from .errors import InputError, SegcutError, SegcutWarning
 
 __all__ = [
     "IMAGE_SUFFIXES",
@@ -665,12 +665,17 @@ def read_seeds(path, *, max_pixels: int = MAX_PIXELS) -> np.ndarray:
 
     - **Label images**: every value is 0, 1 or 2 (gray, any integer type). The values
       are the labels: 0 unknown, 1 foreground, 2 background.
-    - **Drawn markers**: anything else. Each pixel's brightness (the largest colour
-      channel, scaled to 0..1 by the type's range) decides: dark (below 1/4) is
-      unknown, mid-tones (1/4 to 3/4) are background, light (above 3/4) is
-      foreground. Draw foreground in white and background in mid-gray on a black
-      canvas, or on a transparent layer: fully transparent pixels are unknown,
-      whatever colour they store.
+    - **Trimaps and drawn markers**: anything else, read as the common trimap of
+      matting tools: each pixel's brightness (the largest colour channel, scaled to
+      0..1 by the type's range) decides: light (above 3/4) is foreground, mid-tones
+      (1/4 to 3/4) unknown, dark (below 1/4) background. Draw foreground in white and
+      background in black on a mid-gray canvas, or on a transparent layer: fully
+      transparent pixels are unknown, whatever colour they store.
+
+    A marker that looks drawn in the other convention (black unknown canvas,
+    mid-gray background strokes: mid-gray present, black the commonest value, and
+    white touching black more often than mid-gray) gives a
+    :class:`~segcut.errors.SegcutWarning` naming the file.
 
     Parameters
     ----------
@@ -694,10 +699,10 @@ def read_seeds(path, *, max_pixels: int = MAX_PIXELS) -> np.ndarray:
     Examples
     --------
     >>> import tempfile, os
-    >>> path = os.path.join(tempfile.mkdtemp(), "marks.png")
+    >>> path = os.path.join(tempfile.mkdtemp(), "trimap.png")
     >>> write_image(np.array([[0, 128, 255]], np.uint8), path)
     >>> read_seeds(path)
-    array([[0, 2, 1]], dtype=uint8)
+    array([[2, 0, 1]], dtype=uint8)
     """
     data = read_image(path, max_pixels=max_pixels)
     values = _gray_levels(data)
@@ -709,12 +714,37 @@ def read_seeds(path, *, max_pixels: int = MAX_PIXELS) -> np.ndarray:
         else:
             top = float(values.max())
             scaled = values.astype(np.float64) / (top if top > 1.0 else 1.0)
-        labels = np.full(values.shape, SEED_UNKNOWN, dtype=np.uint8)
-        labels[scaled >= 0.25] = SEED_BACKGROUND
+        labels = np.full(values.shape, SEED_BACKGROUND, dtype=np.uint8)
+        labels[scaled >= 0.25] = SEED_UNKNOWN
         labels[scaled > 0.75] = SEED_FOREGROUND
+        visible = None if data.alpha is None else data.alpha != 0
+        if _looks_like_old_markers(labels, visible):
+            warnings.warn(f"{path}: this seed image looks drawn with black as unknown and "
+                          "mid-gray as background; seeds are read as a trimap: white "
+                          "foreground, mid-gray unknown, black background", SegcutWarning,
+                          stacklevel=2)
     if data.alpha is not None and data.alpha.shape == labels.shape:
         labels[data.alpha == 0] = SEED_UNKNOWN
     return labels
+
+
+def _looks_like_old_markers(labels, visible) -> bool:
+    """Mid-gray present, black the commonest, white touching black more often than
+    mid-gray (in a trimap the mid-gray band lies between white and black)."""
+    if visible is not None and visible.shape == labels.shape:
+        labels = np.where(visible, labels, 255)
+    counts = [int(np.count_nonzero(labels == v)) for v in (SEED_UNKNOWN, SEED_FOREGROUND,
+                                                            SEED_BACKGROUND)]
+    if counts[0] == 0 or counts[2] <= max(counts[0], counts[1]):
+        return False
+    touch = {SEED_UNKNOWN: 0, SEED_BACKGROUND: 0}
+    for axis in range(labels.ndim):
+        a = np.moveaxis(labels, axis, 0)
+        first, second = a[:-1], a[1:]
+        for other in touch:
+            touch[other] += int(np.count_nonzero((first == SEED_FOREGROUND) & (second == other))
+                                + np.count_nonzero((second == SEED_FOREGROUND) & (first == other)))
+    return touch[SEED_BACKGROUND] > touch[SEED_UNKNOWN]
 
 
 # ----------------------------------------------------------------------------- writing
