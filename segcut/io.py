@@ -418,9 +418,37 @@ def _integer_to_supported(values: np.ndarray) -> np.ndarray:
 
 
 def _read_tiff(path, max_pixels: int) -> ImageData:
+    notes: list[str] = []
+    decoded = _decode_tiff(path, max_pixels, notes)
+    if isinstance(decoded, ImageData):
+        return decoded  # read by Pillow instead
+    array, axes, shape, photometric, colormap = decoded
+    array = np.asarray(array)
+    mode = f"{photometric} {array.dtype.name}"
+    array, has_samples = _tiff_layout(array, axes, shape, path)
+    if photometric == "palette" and colormap is not None and not has_samples:
+        cmap = np.asarray(colormap)
+        if cmap.ndim == 2 and cmap.shape[0] == 3:
+            index = np.clip(array.astype(np.int64), 0, cmap.shape[1] - 1)
+            array = np.moveaxis(cmap[:, index], 0, -1)
+            if array.dtype == np.uint16 and cmap.max() <= 255:
+                array = array.astype(np.uint8)
+            has_samples = True
+    if photometric == "miniswhite" and not has_samples:
+        array = _invert(array)
+    channel_axis, alpha = None, None
+    if has_samples:
+        array, channel_axis, alpha = _tiff_channels(array, photometric, path, notes)
+    array = _normalise_dtype(array, path, notes, colour=channel_axis is not None)
+    return ImageData(np.ascontiguousarray(array), channel_axis, _as_str(path), "TIFF", mode,
+                     tuple(notes), alpha)
+
+
+def _decode_tiff(path, max_pixels: int, notes: list):
+    """The first series' pixels and header facts ``(array, axes, shape, photometric,
+    colormap)``, or the :class:`ImageData` Pillow read when tifffile lacks the codec."""
     import tifffile
 
-    notes: list[str] = []
     try:
         with _tifffile_log(notes), tifffile.TiffFile(path) as tif:
             if not tif.series:
@@ -430,13 +458,12 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
                 notes.append(f"TIFF holds {len(tif.series)} image series; the first was read")
             axes, shape = series.axes, tuple(series.shape)
             page = series.pages[0] if series.pages else tif.pages[0]
-            photometric = _photometric_name(page)
             spatial = [n for a, n in zip(axes, shape) if a != "S"]
             if 0 in shape:
                 raise InputError(f"image has no pixels (shape {shape})", path=path)
             _too_many(math.prod(spatial), max_pixels, path, shape)
-            array = series.asarray()
-            colormap = getattr(page, "colormap", None)
+            return (series.asarray(), axes, shape, _photometric_name(page),
+                    getattr(page, "colormap", None))
     except InputError:
         raise
     except MemoryError:
@@ -453,16 +480,18 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
                     f"{fallback.message})", path=path) from None
         raise InputError(f"truncated or corrupt TIFF data ({_one_line(err)})", path=path) from None
 
-    array = np.asarray(array)
+
+def _tiff_layout(array, axes: str, shape, path):
+    """Samples axis last, unit axes squeezed, at most one stack axis; returns
+    ``(array, has_samples)``."""
     if array.size == 0 or array.ndim != len(axes):
         raise InputError(
             f"corrupt TIFF: its data (shape {array.shape}) does not match its header "
             f"(axes {axes}, shape {shape})", path=path)
-    mode = f"{photometric} {array.dtype.name}"
     if array.dtype.kind == "c":
         raise InputError(f"complex-valued TIFF ({array.dtype}) is not an image segcut reads",
                          path=path)
-    # move the samples axis last, squeeze unit axes, keep at most one stack axis
+    header_axes = axes
     if "S" in axes:
         array = np.moveaxis(array, axes.index("S"), -1)
         axes = axes.replace("S", "") + "S"
@@ -472,50 +501,31 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
     core = axes.replace("S", "")
     if not core.endswith("YX") or len(core) > 3:
         raise InputError(
-            f"unsupported TIFF dimensions (axes {series.axes}, shape {shape}); segcut reads "
+            f"unsupported TIFF dimensions (axes {header_axes}, shape {shape}); segcut reads "
             "2-D images and 3-D stacks, gray or colour",
             path=path,
         )
-    has_samples = axes.endswith("S")
+    return array, axes.endswith("S")
 
-    if photometric == "palette" and colormap is not None and not has_samples:
-        cmap = np.asarray(colormap)
-        if cmap.ndim == 2 and cmap.shape[0] == 3:
-            index = np.clip(array.astype(np.int64), 0, cmap.shape[1] - 1)
-            array = np.moveaxis(cmap[:, index], 0, -1)
-            if array.dtype == np.uint16 and cmap.max() <= 255:
-                array = array.astype(np.uint8)
-            has_samples = True
-    if photometric == "miniswhite" and not has_samples:
-        array = _invert(array)
 
-    channel_axis = None
-    alpha = None
-    if has_samples:
-        n_channels = array.shape[-1]
-        if n_channels == 1:
-            array = array[..., 0]
-        elif n_channels == 2:
-            notes.append("alpha channel dropped (gray + alpha TIFF)")
-            alpha = np.ascontiguousarray(array[..., 1])
-            array = array[..., 0]
-        elif photometric == "separated" and n_channels == 4:
-            array = _cmyk_to_rgb(array)
-            channel_axis = -1
-        elif n_channels in (3, 4):
-            if n_channels == 4:
-                notes.append("fourth channel (alpha) dropped")
-                alpha = np.ascontiguousarray(array[..., 3])
-            array = array[..., :3]
-            channel_axis = -1
-        else:
-            raise InputError(
-                f"unsupported TIFF with {n_channels} channels per pixel (1 to 4 are read)",
-                path=path,
-            )
-    array = _normalise_dtype(array, path, notes, colour=channel_axis is not None)
-    return ImageData(np.ascontiguousarray(array), channel_axis, _as_str(path), "TIFF", mode,
-                     tuple(notes), alpha)
+def _tiff_channels(array, photometric: str, path, notes: list):
+    """Gray, gray + alpha, RGB(A) or CMYK samples to ``(array, channel_axis, alpha)``."""
+    n_channels = array.shape[-1]
+    if n_channels == 1:
+        return array[..., 0], None, None
+    if n_channels == 2:
+        notes.append("alpha channel dropped (gray + alpha TIFF)")
+        return array[..., 0], None, np.ascontiguousarray(array[..., 1])
+    if photometric == "separated" and n_channels == 4:
+        return _cmyk_to_rgb(array), -1, None
+    if n_channels in (3, 4):
+        alpha = None
+        if n_channels == 4:
+            notes.append("fourth channel (alpha) dropped")
+            alpha = np.ascontiguousarray(array[..., 3])
+        return array[..., :3], -1, alpha
+    raise InputError(
+        f"unsupported TIFF with {n_channels} channels per pixel (1 to 4 are read)", path=path)
 
 
 @contextlib.contextmanager
