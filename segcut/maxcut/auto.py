@@ -76,7 +76,7 @@ def solve_warm(graph, *, method: str, start, max_moves: int | None = None,
 
 
 def certify(graph: SignedGraph, *, rng, time_limit: float | None = None,
-            settings: sdp.SdpSettings = sdp.QUICK) -> sdp.SdpSolution | None:
+            settings: sdp.SdpSettings | None = None) -> sdp.SdpSolution | None:
     """The relaxation behind the bound of method ``"auto"`` (None for a graph without edges).
 
     Parameters
@@ -87,8 +87,8 @@ def certify(graph: SignedGraph, *, rng, time_limit: float | None = None,
         same bound.
     time_limit : float, optional
         Seconds for the relaxation's sweeps.
-    settings : SdpSettings
-        Accuracy and roundings; :data:`~segcut.maxcut.sdp.QUICK` by default.
+    settings : SdpSettings, optional
+        Accuracy of the relaxation; :data:`~segcut.maxcut.sdp.QUICK` by default.
 
     Examples
     --------
@@ -100,6 +100,7 @@ def certify(graph: SignedGraph, *, rng, time_limit: float | None = None,
     """
     if graph.n_edges == 0:
         return None
+    settings = sdp.QUICK if settings is None else settings
     return sdp.solve_sdp_relaxation(graph, tol=settings.tol, time_limit=time_limit, rng=rng)
 
 

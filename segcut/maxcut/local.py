@@ -196,7 +196,7 @@ DEFAULT_STARTS = 8
 KICK_STRENGTH = 2
 
 
-def _multi_start(graph: SignedGraph, rng, n_starts: int):
+def _multi_start(graph: SignedGraph, rng, n_starts: int, tol: float):
     """Best of ``n_starts`` ascents (see :func:`_solve_local`); ties between ends go to
     the earlier. Returns (sides, value, flips)."""
     n = graph.n_vertices
@@ -206,7 +206,6 @@ def _multi_start(graph: SignedGraph, rng, n_starts: int):
     starts = np.empty((n_starts, n), dtype=np.int8)
     values = np.empty(n_starts, dtype=np.float64)
     rng_state = np.array([rng.integers(1, 2 ** 63, dtype=np.int64)], dtype=np.uint64)
-    tol = gain_tolerance(graph)
     flips = _kernels.ascend_many(graph.indptr, graph.indices, graph.weights, starts,
                                  (n_starts + 1) // 2 if buckets else 1, values, rng_state,
                                  max_gain, tol)
@@ -217,21 +216,22 @@ def _multi_start(graph: SignedGraph, rng, n_starts: int):
     return starts[best].copy(), float(values[best]), int(flips)
 
 
-def _kick(graph: SignedGraph, sides, rng, n_kicks: int) -> tuple[np.ndarray, int]:
+def _kick(graph: SignedGraph, sides, rng, n_kicks: int, tol: float):
     """``n_kicks`` kicks of :data:`KICK_STRENGTH` random flips, each followed by a
     first-improvement descent and kept only when the cut rose; ends with a full
-    descent, so the answer is a 1-flip local optimum. Returns (sides, kicks kept)."""
+    descent, so the answer is a 1-flip local optimum. Returns (sides, value, kicks kept),
+    the value from the gains: ``(sum_{i<j} w_ij - sum_i gain_i / 2) / 2``."""
     x = np.ascontiguousarray(sides, dtype=np.int8).copy()
     gains = np.empty(graph.n_vertices, dtype=np.float64)
     _kernels.compute_gains(graph.indptr, graph.indices, graph.weights, x, gains)
     rng_state = np.array([rng.integers(1, 2 ** 63, dtype=np.int64)], dtype=np.uint64)
-    tol = gain_tolerance(graph)
     kept = _kernels.kick_and_descend(graph.indptr, graph.indices, graph.weights, x, gains,
                                      n_kicks, KICK_STRENGTH, rng_state, tol)
     _kernels.descend_1flip(graph.indptr, graph.indices, graph.weights, x, gains,
                            np.arange(graph.n_vertices, dtype=np.int64), tol,
                            np.iinfo(np.int64).max)
-    return x, int(kept)
+    value = 0.5 * (0.5 * float(graph.weights.sum()) - 0.5 * float(gains.sum()))
+    return x, value, int(kept)
 
 
 def _solve_local(graph: SignedGraph, *, time_limit=None, rng=None, start=None,
@@ -257,9 +257,10 @@ def _solve_local(graph: SignedGraph, *, time_limit=None, rng=None, start=None,
     rng = np.random.default_rng(rng)
     kind = "best" if rule == "best" else "first"
     if start is None:
-        sides, _, moves = _multi_start(graph, rng, int(n_starts))
+        tol = gain_tolerance(graph)
+        sides, _, moves = _multi_start(graph, rng, int(n_starts), tol)
         kicks = graph.n_vertices // 3 if n_kicks is None else int(n_kicks)
-        sides, kept = _kick(graph, sides, rng, kicks)
+        sides, value, kept = _kick(graph, sides, rng, kicks, tol)
         how = (f"best of {n_starts} ascents from the empty cut and random splits, then "
                f"{kicks} kicks ({kept} kept)")
     else:
@@ -273,7 +274,7 @@ def _solve_local(graph: SignedGraph, *, time_limit=None, rng=None, start=None,
             x0 = validate_sides(graph, start)
         sides, moves = descend(graph, x0, rng=rng, rule=rule)
         how = f"{kind} improvement"
-    value = cut_value(graph, sides)
+        value = cut_value(graph, sides)
     return CutResult(sides=sides, value=value, upper_bound=None, gap=None, method="local",
                      status="local_optimum",
                      message=f"1-flip local optimum ({how}; {moves} flips in the ascents)",
