@@ -95,6 +95,18 @@ def _methods_epilog() -> str:
     return "\n".join(lines)
 
 
+def _registries_epilog() -> str:
+    """What the registries hold (plugins included): priors, affinity models, methods."""
+    from segcut.affinity import available_affinity_models
+    from segcut.priors import available_priors
+
+    lines = ["priors (--prior):"]
+    lines += [f"  {name:16s} {p.description}" for name, p in available_priors().items()]
+    lines += ["", "affinity models (--affinity):"]
+    lines += [f"  {name:16s} {m.description}" for name, m in available_affinity_models().items()]
+    return "\n".join(lines) + "\n\n" + _methods_epilog()
+
+
 # --- maxcut -------------------------------------------------------------------------
 
 def _add_maxcut_parser(sub) -> None:
@@ -105,7 +117,7 @@ def _add_maxcut_parser(sub) -> None:
                        epilog=_methods_epilog(),
                        formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("graph", metavar="GRAPHFILE", help="edge-list (.txt, any other suffix) or .graphml file")
-    _add_solver_options(p, default_method="tabu")
+    _add_solver_options(p, default_method="auto")
     _add_seed_option(p)
     _add_json_option(p)
     p.add_argument("-o", "--out", metavar="SIDES_FILE", default=None,
@@ -219,7 +231,8 @@ def _add_split_parser(sub) -> None:
                     "records.jsonl, summary.csv, run.toml and report.html into OUT. "
                     "Sub-folders are mirrored in masks/ and overlays/. Re-running the same "
                     "command skips images already finished with the same config and file "
-                    "content; a folder holding another config's results is refused.")
+                    "content; a folder holding another config's results is refused.",
+        epilog=_registries_epilog(), formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("paths", metavar="PATH", nargs="+", help="image files and folders")
     p.add_argument("-o", "--out", metavar="OUT", required=True, help="the run folder")
     p.add_argument("--include", metavar="GLOB", action="append", default=[],
@@ -229,7 +242,8 @@ def _add_split_parser(sub) -> None:
     p.add_argument("--config", metavar="FILE", default=None,
                    help="TOML config (the options below override it)")
     p.add_argument("--prior", metavar="PRIOR", default=None,
-                   help="none, border, center or border,center")
+                   help="none, or registered priors joined by commas, e.g. border,center "
+                        "(listed below)")
     p.add_argument("--box", type=_box, default=None, metavar="X0,Y0,X1,Y1",
                    help="a box known to hold the foreground (pixels; x is the column)")
     p.add_argument("--seeds", metavar="PATH", default=None,
@@ -241,7 +255,7 @@ def _add_split_parser(sub) -> None:
     p.add_argument("--affinity", metavar="NAME", default=None,
                    help=f"affinity model: {', '.join(available_affinity_models())} "
                         "(default: the config's)")
-    _add_solver_options(p, default_method=None, extra_methods=("auto",))
+    _add_solver_options(p, default_method=None)
     p.add_argument("--seed", type=_non_negative_int, default=None,
                    help="random seed (default: the config's, 0); per-image seeds derive from it")
     p.add_argument("--jobs", "-j", type=_positive_int, default=None, metavar="N",

@@ -11,8 +11,8 @@ Outputs (relative to the output folder):
 
 - ``images/<name>.png`` (or ``.tif``): the pictures segcut splits;
 - ``truth/<name>.png``: the true mask of each picture (0 background, 255 leaf);
-- ``seeds/<name>.png``: a drawn seed marker for one picture (white = leaf,
-  mid-gray = background, black = unknown), for trying ``--seeds``.
+- ``seeds/<name>.png``: a drawn seed trimap for one picture (white = leaf,
+  black = background, mid-gray = unknown), for trying ``--seeds``.
 
 The truth is exact by construction: a pixel is leaf when its centre lies inside the
 leaf outline (blade or stalk). The picture is then made from the truth: leaf and
@@ -357,12 +357,12 @@ SEEDED_SCENE = "sprig_trio"
 
 
 def seed_marker(truth, rng):
-    """A hand-drawn-looking marker: short white strokes inside the leaves, gray strokes
-    on the paper, black elsewhere (the values :func:`segcut.io.read_seeds` reads)."""
-    marker = np.zeros(truth.shape, np.uint8)
+    """A hand-drawn-looking trimap: short white strokes inside the leaves, black strokes
+    on the paper, mid-gray (unknown) elsewhere (as :func:`segcut.io.read_seeds` reads)."""
+    marker = np.full(truth.shape, 128, np.uint8)
     inside = ndi.binary_erosion(truth, iterations=6)
     outside = ~ndi.binary_dilation(truth, iterations=10)
-    for region, value, count in ((inside, 255, 3), (outside, 128, 6)):
+    for region, value, count in ((inside, 255, 3), (outside, 0, 6)):
         ys, xs = np.nonzero(region)
         picks = rng.choice(ys.size, size=count, replace=False)
         for i in np.sort(picks):

@@ -17,10 +17,7 @@ from dataclasses import dataclass, fields
 
 from .errors import ConfigError
 
-__all__ = ["SplitConfig", "load_config", "PRIOR_NAMES", "SECTIONS"]
-
-#: Priors that need no extra input (``box`` and seeds are given separately).
-PRIOR_NAMES = ("border", "center")
+__all__ = ["SplitConfig", "load_config", "SECTIONS", "check_registered_names"]
 
 #: Table of the TOML file each field lives in ("" = top level).
 SECTIONS = {
@@ -29,6 +26,7 @@ SECTIONS = {
     "pixel_grid_max_pixels": "superpixels",
     "sigma": "superpixels",
     "affinity": "affinity",
+    "affinity_options": "affinity",
     "threshold_quantile": "affinity",
     "smoothness": "affinity",
     "n_neighbors": "affinity",
@@ -76,6 +74,9 @@ class SplitConfig:
     affinity : str
         Name of the affinity model turning region distances into signed weights
         (see :func:`segcut.affinity.available_affinity_models`).
+    affinity_options : tuple of (name, value) pairs
+        Options of the affinity model (those it declares; a dict is accepted and
+        stored sorted). In TOML an inline table: ``affinity_options = {scale = 2.0}``.
     threshold_quantile : float
         Quantile of the neighbour distances where an edge changes sign (0 < q < 1):
         closer pairs attract, farther pairs repel.
@@ -84,8 +85,9 @@ class SplitConfig:
     n_neighbors : int
         Long-range attractive edges to the k nearest regions in colour space (0 = none).
     prior : tuple of str
-        Any of ``"border"`` (the frame is background) and ``"center"`` (a central box
-        is foreground); empty for no prior.
+        Names of registered priors (see :func:`segcut.priors.available_priors`):
+        built in, ``"border"`` (the frame is background) and ``"center"`` (a central
+        box is foreground); empty for no prior.
     box : (x0, y0, x1, y1) tuple of int, or None
         A box known to contain the foreground (pixels; x is the column). Outside
         it is taken as background.
@@ -127,8 +129,9 @@ class SplitConfig:
         Weight of a neighbour edge between equal pixels in the refinement graph,
         against the colour-model evidence of one pixel.
     method : str
-        Max-cut method; ``"auto"`` takes tabu search warm-started from the SDP
-        relaxation when available, otherwise the best registered method.
+        A registered max-cut method (see :func:`segcut.maxcut.available_methods`);
+        ``"auto"``: the SDP bound and tabu search from the colour-model split and a
+        Goemans-Williamson rounding (:mod:`segcut.maxcut.auto`).
     time_limit : float or None
         Seconds the solver may use per solve (None: the iteration budget decides).
     max_moves : int or None
@@ -155,6 +158,7 @@ class SplitConfig:
     pixel_grid_max_pixels: int = 1024
     sigma: float = 1.0
     affinity: str = "colour"
+    affinity_options: tuple = ()
     threshold_quantile: float = 0.95
     smoothness: float = 4.0
     n_neighbors: int = 0
@@ -252,6 +256,8 @@ class SplitConfig:
         if "box" in values:
             box = values["box"]
             values["box"] = tuple(box) if isinstance(box, list) else box
+        if isinstance(values.get("affinity_options"), dict):
+            values["affinity_options"] = tuple(sorted(values["affinity_options"].items()))
         try:
             return cls(**values)
         except (TypeError, ValueError) as err:
@@ -266,6 +272,8 @@ class SplitConfig:
             changes["prior"] = _as_prior(changes["prior"])
         if "box" in changes and changes["box"] is not None:
             changes["box"] = tuple(changes["box"])
+        if isinstance(changes.get("affinity_options"), dict):
+            changes["affinity_options"] = tuple(sorted(changes["affinity_options"].items()))
         return dataclasses.replace(self, **changes)
 
     # -- output -------------------------------------------------------------------
@@ -274,6 +282,8 @@ class SplitConfig:
         out = {}
         for f in fields(self):
             value = getattr(self, f.name)
+            if f.name == "affinity_options":
+                value = dict(value)
             out[f.name] = list(value) if isinstance(value, tuple) else value
         return out
 
@@ -293,6 +303,10 @@ class SplitConfig:
                 value = getattr(self, name)
                 if value is None:
                     lines.append(f"# {name} is not set")
+                elif name == "affinity_options":
+                    if value:  # none: no line, so configs without options keep their hash
+                        pairs = ", ".join(f"{k} = {_toml_value(v)}" for k, v in value)
+                        lines.append(f"{name} = {{{pairs}}}")
                 else:
                     lines.append(f"{name} = {_toml_value(value)}")
         return "\n".join(lines) + "\n"
@@ -377,10 +391,8 @@ def _validate(cfg: SplitConfig) -> None:
         object.__setattr__(cfg, "prior", _as_prior(prior))
         prior = cfg.prior
     for p in prior:
-        if p not in PRIOR_NAMES:
-            raise ValueError(
-                f"prior {p!r} is not known; use any of {', '.join(PRIOR_NAMES)} (box and seeds "
-                "are separate options)")
+        if not isinstance(p, str) or not p:
+            raise ValueError(f"prior must be a list of names; got {prior!r}")
     if len(set(prior)) != len(prior):
         raise ValueError(f"prior lists a name twice: {prior!r}")
     if cfg.box is not None:
@@ -391,6 +403,41 @@ def _validate(cfg: SplitConfig) -> None:
         if not (box[0] < box[2] and box[1] < box[3]):
             raise ValueError(f"box must have x0 < x1 and y0 < y1; got {tuple(box)!r}")
         object.__setattr__(cfg, "box", tuple(box))
+    options = cfg.affinity_options
+    if isinstance(options, dict):
+        options = tuple(sorted(options.items()))
+    if (not isinstance(options, tuple)
+            or not all(isinstance(o, tuple) and len(o) == 2 and isinstance(o[0], str)
+                       for o in options)):
+        raise ValueError(f"affinity_options must be a table of option names and values; "
+                         f"got {cfg.affinity_options!r}")
+    object.__setattr__(cfg, "affinity_options", tuple(sorted(options)))
+    check_registered_names(cfg)
+
+
+def check_registered_names(cfg: SplitConfig) -> None:
+    """The one check of a config's names against the registries (plugins included).
+
+    The priors, the affinity model (and its options) and the max-cut method must be
+    registered, built in or added by another package through an entry point
+    (:mod:`segcut.priors`, :mod:`segcut.affinity`, :mod:`segcut.maxcut`).
+
+    Raises
+    ------
+    ValueError
+        Naming the unknown name and the registered ones.
+    """
+    from .affinity import get_affinity_model
+    from .maxcut import get_method
+    from .priors import available_priors
+
+    priors = available_priors()
+    for p in cfg.prior:
+        if p not in priors:
+            raise ValueError(f"prior {p!r} is not known; use any of {', '.join(priors)} (box "
+                             "and seeds are separate options)")
+    get_affinity_model(cfg.affinity).check_options(cfg.affinity_options)
+    get_method(cfg.method)
 
 
 def _toml_value(value) -> str:

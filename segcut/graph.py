@@ -174,12 +174,13 @@ def graph_from_edges(n_vertices, rows, cols, weights=None) -> SignedGraph:
     if bad.size:
         k = bad[0]
         raise ValueError(f"edge {k} ({rows[k]}, {cols[k]}) has a non-finite weight {weights[k]}")
-    both_r = np.concatenate([rows, cols])
-    both_c = np.concatenate([cols, rows])
-    both_w = np.concatenate([weights, weights])
-    mat = sp.csr_array((both_w, (both_r, both_c)), shape=(n, n))  # sums duplicates
-    mat.sum_duplicates()
-    mat.eliminate_zeros()
+    # sum duplicates once per unordered pair, then mirror: w_ij and w_ji are the same
+    # float (summing each orientation on its own could differ in the last bit)
+    upper = sp.csr_array((weights, (np.minimum(rows, cols), np.maximum(rows, cols))),
+                         shape=(n, n))
+    upper.sum_duplicates()
+    upper.eliminate_zeros()
+    mat = (upper + upper.T).tocsr()  # strictly upper plus strictly lower: no sums
     mat.sort_indices()
     return SignedGraph(
         indptr=np.ascontiguousarray(mat.indptr, dtype=np.int64),

@@ -51,8 +51,8 @@ Notes collected while reading are returned in :attr:`ImageData.warnings`; nothin
 emitted through :mod:`warnings`, so the caller decides how to report them.
 
 :func:`read_mask` reads a two-region mask (ours, or a reference) as a boolean array,
-and :func:`read_seeds` reads a marker image into the labels 0 unknown, 1 foreground,
-2 background.
+and :func:`read_seeds` reads a marker image (a trimap: white foreground, mid-gray
+unknown, black background) into the labels 0 unknown, 1 foreground, 2 background.
 
 Writing
 -------
@@ -79,7 +79,7 @@ from typing import Iterator
 
 import numpy as np
 
-from .errors import InputError, SegcutError
+from .errors import InputError, SegcutError, SegcutWarning
 
 __all__ = [
     "IMAGE_SUFFIXES",
@@ -418,9 +418,37 @@ def _integer_to_supported(values: np.ndarray) -> np.ndarray:
 
 
 def _read_tiff(path, max_pixels: int) -> ImageData:
+    notes: list[str] = []
+    decoded = _decode_tiff(path, max_pixels, notes)
+    if isinstance(decoded, ImageData):
+        return decoded  # read by Pillow instead
+    array, axes, shape, photometric, colormap = decoded
+    array = np.asarray(array)
+    mode = f"{photometric} {array.dtype.name}"
+    array, has_samples = _tiff_layout(array, axes, shape, path)
+    if photometric == "palette" and colormap is not None and not has_samples:
+        cmap = np.asarray(colormap)
+        if cmap.ndim == 2 and cmap.shape[0] == 3:
+            index = np.clip(array.astype(np.int64), 0, cmap.shape[1] - 1)
+            array = np.moveaxis(cmap[:, index], 0, -1)
+            if array.dtype == np.uint16 and cmap.max() <= 255:
+                array = array.astype(np.uint8)
+            has_samples = True
+    if photometric == "miniswhite" and not has_samples:
+        array = _invert(array)
+    channel_axis, alpha = None, None
+    if has_samples:
+        array, channel_axis, alpha = _tiff_channels(array, photometric, path, notes)
+    array = _normalise_dtype(array, path, notes, colour=channel_axis is not None)
+    return ImageData(np.ascontiguousarray(array), channel_axis, _as_str(path), "TIFF", mode,
+                     tuple(notes), alpha)
+
+
+def _decode_tiff(path, max_pixels: int, notes: list):
+    """The first series' pixels and header facts ``(array, axes, shape, photometric,
+    colormap)``, or the :class:`ImageData` Pillow read when tifffile lacks the codec."""
     import tifffile
 
-    notes: list[str] = []
     try:
         with _tifffile_log(notes), tifffile.TiffFile(path) as tif:
             if not tif.series:
@@ -430,13 +458,12 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
                 notes.append(f"TIFF holds {len(tif.series)} image series; the first was read")
             axes, shape = series.axes, tuple(series.shape)
             page = series.pages[0] if series.pages else tif.pages[0]
-            photometric = _photometric_name(page)
             spatial = [n for a, n in zip(axes, shape) if a != "S"]
             if 0 in shape:
                 raise InputError(f"image has no pixels (shape {shape})", path=path)
             _too_many(math.prod(spatial), max_pixels, path, shape)
-            array = series.asarray()
-            colormap = getattr(page, "colormap", None)
+            return (series.asarray(), axes, shape, _photometric_name(page),
+                    getattr(page, "colormap", None))
     except InputError:
         raise
     except MemoryError:
@@ -453,16 +480,18 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
                     f"{fallback.message})", path=path) from None
         raise InputError(f"truncated or corrupt TIFF data ({_one_line(err)})", path=path) from None
 
-    array = np.asarray(array)
+
+def _tiff_layout(array, axes: str, shape, path):
+    """Samples axis last, unit axes squeezed, at most one stack axis; returns
+    ``(array, has_samples)``."""
     if array.size == 0 or array.ndim != len(axes):
         raise InputError(
             f"corrupt TIFF: its data (shape {array.shape}) does not match its header "
             f"(axes {axes}, shape {shape})", path=path)
-    mode = f"{photometric} {array.dtype.name}"
     if array.dtype.kind == "c":
         raise InputError(f"complex-valued TIFF ({array.dtype}) is not an image segcut reads",
                          path=path)
-    # move the samples axis last, squeeze unit axes, keep at most one stack axis
+    header_axes = axes
     if "S" in axes:
         array = np.moveaxis(array, axes.index("S"), -1)
         axes = axes.replace("S", "") + "S"
@@ -472,50 +501,31 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
     core = axes.replace("S", "")
     if not core.endswith("YX") or len(core) > 3:
         raise InputError(
-            f"unsupported TIFF dimensions (axes {series.axes}, shape {shape}); segcut reads "
+            f"unsupported TIFF dimensions (axes {header_axes}, shape {shape}); segcut reads "
             "2-D images and 3-D stacks, gray or colour",
             path=path,
         )
-    has_samples = axes.endswith("S")
+    return array, axes.endswith("S")
 
-    if photometric == "palette" and colormap is not None and not has_samples:
-        cmap = np.asarray(colormap)
-        if cmap.ndim == 2 and cmap.shape[0] == 3:
-            index = np.clip(array.astype(np.int64), 0, cmap.shape[1] - 1)
-            array = np.moveaxis(cmap[:, index], 0, -1)
-            if array.dtype == np.uint16 and cmap.max() <= 255:
-                array = array.astype(np.uint8)
-            has_samples = True
-    if photometric == "miniswhite" and not has_samples:
-        array = _invert(array)
 
-    channel_axis = None
-    alpha = None
-    if has_samples:
-        n_channels = array.shape[-1]
-        if n_channels == 1:
-            array = array[..., 0]
-        elif n_channels == 2:
-            notes.append("alpha channel dropped (gray + alpha TIFF)")
-            alpha = np.ascontiguousarray(array[..., 1])
-            array = array[..., 0]
-        elif photometric == "separated" and n_channels == 4:
-            array = _cmyk_to_rgb(array)
-            channel_axis = -1
-        elif n_channels in (3, 4):
-            if n_channels == 4:
-                notes.append("fourth channel (alpha) dropped")
-                alpha = np.ascontiguousarray(array[..., 3])
-            array = array[..., :3]
-            channel_axis = -1
-        else:
-            raise InputError(
-                f"unsupported TIFF with {n_channels} channels per pixel (1 to 4 are read)",
-                path=path,
-            )
-    array = _normalise_dtype(array, path, notes, colour=channel_axis is not None)
-    return ImageData(np.ascontiguousarray(array), channel_axis, _as_str(path), "TIFF", mode,
-                     tuple(notes), alpha)
+def _tiff_channels(array, photometric: str, path, notes: list):
+    """Gray, gray + alpha, RGB(A) or CMYK samples to ``(array, channel_axis, alpha)``."""
+    n_channels = array.shape[-1]
+    if n_channels == 1:
+        return array[..., 0], None, None
+    if n_channels == 2:
+        notes.append("alpha channel dropped (gray + alpha TIFF)")
+        return array[..., 0], None, np.ascontiguousarray(array[..., 1])
+    if photometric == "separated" and n_channels == 4:
+        return _cmyk_to_rgb(array), -1, None
+    if n_channels in (3, 4):
+        alpha = None
+        if n_channels == 4:
+            notes.append("fourth channel (alpha) dropped")
+            alpha = np.ascontiguousarray(array[..., 3])
+        return array[..., :3], -1, alpha
+    raise InputError(
+        f"unsupported TIFF with {n_channels} channels per pixel (1 to 4 are read)", path=path)
 
 
 @contextlib.contextmanager
@@ -665,12 +675,17 @@ def read_seeds(path, *, max_pixels: int = MAX_PIXELS) -> np.ndarray:
 
     - **Label images**: every value is 0, 1 or 2 (gray, any integer type). The values
       are the labels: 0 unknown, 1 foreground, 2 background.
-    - **Drawn markers**: anything else. Each pixel's brightness (the largest colour
-      channel, scaled to 0..1 by the type's range) decides: dark (below 1/4) is
-      unknown, mid-tones (1/4 to 3/4) are background, light (above 3/4) is
-      foreground. Draw foreground in white and background in mid-gray on a black
-      canvas, or on a transparent layer: fully transparent pixels are unknown,
-      whatever colour they store.
+    - **Trimaps and drawn markers**: anything else, read as the common trimap of
+      matting tools: each pixel's brightness (the largest colour channel, scaled to
+      0..1 by the type's range) decides: light (above 3/4) is foreground, mid-tones
+      (1/4 to 3/4) unknown, dark (below 1/4) background. Draw foreground in white and
+      background in black on a mid-gray canvas, or on a transparent layer: fully
+      transparent pixels are unknown, whatever colour they store.
+
+    A marker that looks drawn in the other convention (black unknown canvas,
+    mid-gray background strokes: mid-gray present, black the commonest value, and
+    white touching black more often than mid-gray) gives a
+    :class:`~segcut.errors.SegcutWarning` naming the file.
 
     Parameters
     ----------
@@ -694,10 +709,10 @@ def read_seeds(path, *, max_pixels: int = MAX_PIXELS) -> np.ndarray:
     Examples
     --------
     >>> import tempfile, os
-    >>> path = os.path.join(tempfile.mkdtemp(), "marks.png")
+    >>> path = os.path.join(tempfile.mkdtemp(), "trimap.png")
     >>> write_image(np.array([[0, 128, 255]], np.uint8), path)
     >>> read_seeds(path)
-    array([[0, 2, 1]], dtype=uint8)
+    array([[2, 0, 1]], dtype=uint8)
     """
     data = read_image(path, max_pixels=max_pixels)
     values = _gray_levels(data)
@@ -709,12 +724,37 @@ def read_seeds(path, *, max_pixels: int = MAX_PIXELS) -> np.ndarray:
         else:
             top = float(values.max())
             scaled = values.astype(np.float64) / (top if top > 1.0 else 1.0)
-        labels = np.full(values.shape, SEED_UNKNOWN, dtype=np.uint8)
-        labels[scaled >= 0.25] = SEED_BACKGROUND
+        labels = np.full(values.shape, SEED_BACKGROUND, dtype=np.uint8)
+        labels[scaled >= 0.25] = SEED_UNKNOWN
         labels[scaled > 0.75] = SEED_FOREGROUND
+        visible = None if data.alpha is None else data.alpha != 0
+        if _looks_like_old_markers(labels, visible):
+            warnings.warn(f"{path}: this seed image looks drawn with black as unknown and "
+                          "mid-gray as background; seeds are read as a trimap: white "
+                          "foreground, mid-gray unknown, black background", SegcutWarning,
+                          stacklevel=2)
     if data.alpha is not None and data.alpha.shape == labels.shape:
         labels[data.alpha == 0] = SEED_UNKNOWN
     return labels
+
+
+def _looks_like_old_markers(labels, visible) -> bool:
+    """Mid-gray present, black the commonest, white touching black more often than
+    mid-gray (in a trimap the mid-gray band lies between white and black)."""
+    if visible is not None and visible.shape == labels.shape:
+        labels = np.where(visible, labels, 255)
+    counts = [int(np.count_nonzero(labels == v)) for v in (SEED_UNKNOWN, SEED_FOREGROUND,
+                                                            SEED_BACKGROUND)]
+    if counts[0] == 0 or counts[2] <= max(counts[0], counts[1]):
+        return False
+    touch = {SEED_UNKNOWN: 0, SEED_BACKGROUND: 0}
+    for axis in range(labels.ndim):
+        a = np.moveaxis(labels, axis, 0)
+        first, second = a[:-1], a[1:]
+        for other in touch:
+            touch[other] += int(np.count_nonzero((first == SEED_FOREGROUND) & (second == other))
+                                + np.count_nonzero((second == SEED_FOREGROUND) & (first == other)))
+    return touch[SEED_BACKGROUND] > touch[SEED_UNKNOWN]
 
 
 # ----------------------------------------------------------------------------- writing

@@ -32,13 +32,13 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from .affinity import edge_weights, knn_edges
-from .appearance import ModelProblem, border_rule, choose_end_point, local_best, \
-    run_model_rounds, start_hypotheses
+from .affinity import weigh_pairs
+from .appearance import ModelProblem, border_rule, choose_end_point, run_model_rounds, \
+    start_hypotheses
 from .config import SplitConfig
 from .graph import cut_value, graph_from_edges
 from .image_graph import ImageGraph, PixelContext, frame_pixels, mask_to_sides, vertex_start
-from .maxcut import available_methods, relative_gap, solve_maxcut
+from .maxcut import relative_gap
 from .orientation import CANONICAL_TRANSFORMS, _canonical_box, apply_transform, \
     canonical_transform
 from .prepare import image_features, prepare_image
@@ -250,21 +250,7 @@ def _region_stage(features, config, seconds):
 
 def _pair_stage(regions, adjacency, config):
     """Signed neighbour edges (affinity model) and optional long-range kNN edges."""
-    n = regions.n_regions
-    pair_w, threshold = edge_weights(config.affinity, regions, adjacency,
-                                     quantile=config.threshold_quantile)
-    rows, cols = adjacency.rows, adjacency.cols
-    pair_w = config.smoothness * pair_w
-    if config.n_neighbors > 0:
-        kr, kc, kd = knn_edges(regions, config.n_neighbors, exclude=rows * n + cols)
-        colour_t = float(np.quantile(
-            np.sqrt(((regions.mean[rows] - regions.mean[cols]) ** 2).sum(1)),
-            config.threshold_quantile)) if rows.size else 1.0
-        scale = float(np.median(adjacency.border)) if rows.size else 1.0
-        kw = -config.smoothness * scale * np.clip(1.0 - kd / max(colour_t, 1e-12), 0.0, 1.0)
-        rows, cols = np.concatenate([rows, kr]), np.concatenate([cols, kc])
-        pair_w = np.concatenate([pair_w, kw])
-    return rows, cols, pair_w, threshold
+    return weigh_pairs(regions, adjacency, config)
 
 
 # -- stage 4: priors, box and seeds --------------------------------------------------
@@ -446,73 +432,18 @@ def build_image_graph(image, config: SplitConfig | None = None, *, seeds=None,
 
 # -- solving ---------------------------------------------------------------------------
 
-# Default move budget of search methods: enough to polish an SDP rounding on
-# superpixel graphs, deterministic (the budget, not the clock, ends the search).
-_MOVES_PER_VERTEX = 20
-
-
-# Relative accuracy of the SDP relaxation behind the certificate of method "auto".
-_SDP_TOL = 1e-3
-
-
 def _solve(ig: ImageGraph, config: SplitConfig, generator):
-    """Solve the image graph; returns (method, sides, value, upper_bound).
+    """Solve the image graph with ``config.method``; returns (method, sides, value, upper_bound).
 
-    ``method="auto"``: the SDP relaxation gives the certified bound (when the "sdp"
-    method is installed), its Goemans-Williamson rounding one candidate split; tabu
-    search (or a 1-flip descent) from the colour-model rounds' split and from the
-    rounding, with a deterministic move budget, gives the answer. Any other method
-    name goes to :func:`~segcut.maxcut.solve_maxcut` as it is.
+    A method that declares ``warm_start`` searches from the split of the colour-model
+    rounds; one that takes ``max_moves`` gets ``config.max_moves`` (by default 20
+    moves per vertex). ``"auto"`` is the portfolio of :mod:`segcut.maxcut.auto`.
     """
-    methods = available_methods()
-    graph = ig.graph
-    budget = (config.max_moves if config.max_moves is not None
-              else _MOVES_PER_VERTEX * graph.n_vertices)
-    if config.method != "auto":
-        spec = methods.get(config.method)
-        options = {}
-        if spec is not None:
-            if "start" in spec.options:
-                options["start"] = ig.start
-            if "max_moves" in spec.options:
-                options["max_moves"] = budget
-        result = solve_maxcut(graph, method=config.method, time_limit=config.time_limit,
-                              rng=generator, **options)
-        # keep the better of the solver's split and the rounds' split (polished);
-        # the bound holds for the graph whichever split is reported
-        sides, value = local_best(graph, [result.sides, ig.start], generator)
-        if result.value >= value:
-            sides, value = result.sides, result.value
-        return config.method, sides, value, result.upper_bound
+    from .maxcut.auto import solve_warm
 
-    starts = [ig.start]
-    bound = None
-    name = "local"
-    if "sdp" in methods and graph.n_edges > 0:
-        from .maxcut.sdp import round_hyperplanes, solve_sdp_relaxation
-
-        relaxation = solve_sdp_relaxation(graph, tol=_SDP_TOL, time_limit=config.time_limit,
-                                          rng=generator)
-        if relaxation.certified:
-            bound = float(relaxation.upper_bound)
-        starts.append(round_hyperplanes(graph, relaxation.factor, n_hyperplanes=_HYPERPLANES,
-                                        rng=generator))
-        name = "sdp"
-    if "tabu" in methods:
-        best, best_value = None, -np.inf
-        for start in starts:
-            result = solve_maxcut(graph, method="tabu", rng=generator, start=start,
-                                  max_moves=budget)
-            if best is None or result.value > best_value:
-                best, best_value = result.sides, result.value
-        name = "tabu+" + name if name == "sdp" else "tabu"
-        return name, best, best_value, bound
-    sides, value = local_best(graph, starts, generator)
-    return name, sides, value, bound
-
-
-# Random hyperplanes of the Goemans-Williamson rounding in method "auto".
-_HYPERPLANES = 20
+    result = solve_warm(ig.graph, method=config.method, start=ig.start,
+                        max_moves=config.max_moves, time_limit=config.time_limit, rng=generator)
+    return result.method, result.sides, result.value, result.upper_bound
 
 
 # -- stage 7: pixel refinement and clean-up ------------------------------------------

@@ -177,7 +177,7 @@ def seeded_regions(labels, seeds) -> tuple[np.ndarray, list[str]]:
     """Which regions hold hard seeds: +1 foreground, -1 background, 0 none.
 
     A region holding both kinds takes the kind with more pixels (foreground on a
-    tie) and a warning says so.
+    tie) and a warning says how many regions and seed pixels that overruled.
 
     Parameters
     ----------
@@ -201,10 +201,13 @@ def seeded_regions(labels, seeds) -> tuple[np.ndarray, list[str]]:
     out[bg > fg] = -1
     out[(fg == 0) & (bg == 0)] = 0
     warnings = []
-    both = int(np.count_nonzero((fg > 0) & (bg > 0)))
-    if both:
-        warnings.append(f"{both} superpixel(s) hold both foreground and background seeds; "
-                        "each took the kind with more seed pixels")
+    both = (fg > 0) & (bg > 0)
+    if both.any():
+        overruled = int(np.minimum(fg, bg)[both].sum())
+        warnings.append(
+            f"{int(both.sum())} superpixel(s) hold both foreground and background seeds; each "
+            f"took the kind with more seed pixels, overruling {overruled} seed pixel(s) "
+            "(keep the two kinds of seeds further apart, or use more superpixels)")
     return out, warnings
 
 

@@ -752,7 +752,7 @@ class ScoreResult:
 
 
 def score(image, masks, *, config=None, seeds=None, channel_axis: int | None = -1,
-          rng=None, method: str = "sdp") -> ScoreResult:
+          rng=None, method: str | None = None) -> ScoreResult:
     """Cut score of given masks on an image's signed graph, beside its certified bound.
 
     Builds the graph :func:`segcut.split` would solve for ``image`` (same config,
@@ -778,9 +778,13 @@ def score(image, masks, *, config=None, seeds=None, channel_axis: int | None = -
         Seed of the graph building (its colour-model rounds) and of the bound
         solve; by default ``config.seed``, as in ``split``. Score a mask written by
         ``split`` with the seed it ran with.
-    method : str, default "sdp"
-        Max-cut method that provides the upper bound; it must give a certified
-        bound (``"sdp"``, or ``"exact"`` for tiny graphs).
+    method : str, optional
+        Max-cut method that provides the upper bound; by default ``config.method``.
+        The graph is solved exactly as :func:`segcut.split` solves it (same seed
+        stream, start, move budget and certificate settings, see
+        :func:`segcut.maxcut.auto.solve_warm`), so with the same config and seed the
+        bound equals ``SplitResult.upper_bound``. It must give a certified bound
+        (``"auto"``, ``"sdp"``, or ``"exact"`` for tiny graphs).
 
     Returns
     -------
@@ -816,12 +820,13 @@ def score(image, masks, *, config=None, seeds=None, channel_axis: int | None = -
     """
     from .config import SplitConfig
     from .graph import cut_value
-    from .maxcut import get_method, solve_maxcut
-    from .maxcut import sdp as _sdp  # noqa: F401  (registers "sdp", the default bound)
+    from .maxcut import get_method
     from .maxcut._common import relative_gap
+    from .maxcut.auto import solve_warm
     from .pipeline import build_image_graph, mask_to_sides
 
-    get_method(method)  # an unknown method is refused before any work
+    if method is not None:
+        get_method(method)  # an unknown method is refused before any work
 
     if isinstance(masks, Mapping):
         names = [str(k) for k in masks]
@@ -841,12 +846,15 @@ def score(image, masks, *, config=None, seeds=None, channel_axis: int | None = -
     config = SplitConfig() if config is None else config
     if not isinstance(config, SplitConfig):
         raise TypeError(f"config must be a SplitConfig; got {type(config).__name__}")
+    method = config.method if method is None else method
     seed = config.seed if rng is None else rng
-    ig = build_image_graph(image, config, seeds=seeds, channel_axis=channel_axis, rng=seed)
+    generator = np.random.default_rng(seed)  # one stream for building and solving, as split
+    ig = build_image_graph(image, config, seeds=seeds, channel_axis=channel_axis, rng=generator)
     if binary[0].shape != ig.labels.shape:
         raise ValueError(f"mask shape {binary[0].shape} does not match the image's spatial "
                          f"shape {ig.labels.shape}")
-    bound_solve = solve_maxcut(ig.graph, method=method, rng=seed)
+    bound_solve = solve_warm(ig.graph, method=method, start=ig.start, max_moves=config.max_moves,
+                             time_limit=config.time_limit, rng=generator)
     bound = bound_solve.upper_bound
     values, agreements = [], []
     for b in binary:

@@ -265,8 +265,8 @@ def test_seed_folder_is_matched_by_relative_path_then_stem(scenes, serial_run, t
     folder, _ = scenes
     marks = tmp_path / "marks"
     (marks / "sub").mkdir(parents=True)
-    canvas = np.zeros((SIZE, SIZE), np.uint8)
-    canvas[:4, :] = 128  # the top rows are background (mid-gray)
+    canvas = np.full((SIZE, SIZE), 128, np.uint8)  # a trimap: mid-gray is unknown
+    canvas[:4, :] = 0  # the top rows are background (black)
     canvas[84:92, 84:92] = 255  # a patch of the ground is foreground (white): seeds overrule
     Image.fromarray(canvas).save(marks / "a.png")  # matches a.png by stem
     Image.fromarray(canvas).save(marks / "sub" / "c.png")  # matches sub/c.png by path

@@ -39,7 +39,12 @@ def test_json_record_and_sides_file(test_data, tmp_path, capsys):
     record = json.loads(capsys.readouterr().out)
     assert JSON_KEYS <= set(record)
     assert (record["n_vertices"], record["n_edges"]) == (800, 1600)
-    assert record["method"] == "tabu" and record["upper_bound"] is None and record["gap"] is None
+    # the default is the portfolio "auto": best cut and a certified bound, which can
+    # never be below the best known cut
+    assert record["method"] == "tabu+sdp"
+    assert record["upper_bound"] >= G11_BEST_KNOWN >= record["value"]
+    assert record["gap"] == pytest.approx(
+        (record["upper_bound"] - record["value"]) / record["upper_bound"])
     assert 0 < record["solve_seconds"] <= record["seconds"]
     graph = read_graph(test_data / "G11.txt")
     sides = read_sides(sides_path, n_vertices=800)

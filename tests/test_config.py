@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import tomllib
 
+import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -110,3 +111,28 @@ def test_bool_is_not_a_number():
 def test_replace_unknown_field():
     with pytest.raises(TypeError, match="no field"):
         SplitConfig().replace(colour=3)
+
+
+def test_a_registered_prior_is_accepted_by_name():
+    # a prior registered by another package (here in-process) is a valid config name
+    from segcut import priors
+
+    with pytest.raises(ValueError, match="prior 'stripes' is not known"):
+        SplitConfig(prior=("stripes",))
+    try:
+        priors.register_prior("stripes", lambda shape, config: np.zeros(shape))
+        cfg = SplitConfig(prior=("border", "stripes"))
+        assert SplitConfig.from_toml(cfg.to_toml()) == cfg
+    finally:
+        priors._PRIORS.pop("stripes", None)
+
+
+def test_config_checks_types_of_names_and_affinity_options():
+    with pytest.raises(ValueError, match="prior must be a list of names"):
+        SplitConfig(prior=(3,))
+    with pytest.raises(ValueError, match="unknown max-cut method 'nope'"):
+        SplitConfig(method="nope")
+    with pytest.raises(ValueError, match="has no option"):
+        SplitConfig(affinity_options={"scale": 2.0})
+    with pytest.raises(ConfigError, match="affinity_options must be a table"):
+        SplitConfig.from_toml("[affinity]\naffinity_options = 3\n")

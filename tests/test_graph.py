@@ -159,3 +159,18 @@ def test_bad_sides_are_refused():
         validate_sides(g, [1, -1])
     with pytest.raises(ValueError, match="sides must be -1/\\+1"):
         validate_sides(g, [1, 2, 1])
+
+
+@settings(max_examples=50, deadline=None)
+@given(seed=st.integers(0, 2 ** 32 - 1), n=st.integers(2, 12))
+def test_weights_are_exactly_symmetric_with_duplicates_in_both_orientations(seed, n):
+    # common knowledge: an undirected weight matrix is symmetric, w_ij == w_ji exactly;
+    # summing duplicates given as (i, j) and (j, i) must not leave a last-bit difference
+    rng = np.random.default_rng(seed)
+    i, j = rng.integers(0, n, 40), rng.integers(0, n, 40)
+    keep = i != j
+    g = graph_from_edges(n, i[keep], j[keep], rng.normal(size=keep.sum()))
+    dense = np.zeros((n, n))
+    rows = np.repeat(np.arange(n), np.diff(g.indptr))
+    dense[rows, g.indices] = g.weights
+    assert np.array_equal(dense, dense.T)

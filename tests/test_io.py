@@ -20,7 +20,7 @@ from hypothesis import strategies as st
 from hypothesis.extra import numpy as hnp
 from PIL import Image
 
-from segcut.errors import InputError, SegcutError
+from segcut.errors import InputError, SegcutError, SegcutWarning
 from segcut.io import (
     IMAGE_SUFFIXES,
     MAX_PIXELS,
@@ -492,29 +492,65 @@ def test_read_mask_errors(tmp_path):
 
 
 def test_read_seeds_labels_and_drawn_markers(tmp_path):
+    # the common trimap of matting (common knowledge): white foreground, mid-gray
+    # unknown band, black background; label images 0/1/2 keep their meaning
     labels = RNG.integers(0, 3, size=(6, 8), dtype=np.uint8)
     Image.fromarray(labels).save(tmp_path / "labels.png")
     np.testing.assert_array_equal(read_seeds(tmp_path / "labels.png"), labels)
     drawn = np.array([[0, 50, 70, 128, 180, 200, 255]], np.uint8)
     Image.fromarray(drawn).save(tmp_path / "drawn.png")
-    assert read_seeds(tmp_path / "drawn.png").tolist() == [[0, 0, 2, 2, 2, 1, 1]]
+    assert read_seeds(tmp_path / "drawn.png").tolist() == [[2, 2, 0, 0, 0, 1, 1]]
     drawn16 = (drawn.astype(np.uint16) * 257)
     Image.fromarray(drawn16).save(tmp_path / "drawn16.png")
-    assert read_seeds(tmp_path / "drawn16.png").tolist() == [[0, 0, 2, 2, 2, 1, 1]]
+    assert read_seeds(tmp_path / "drawn16.png").tolist() == [[2, 2, 0, 0, 0, 1, 1]]
     colour = np.zeros((1, 3, 3), np.uint8)
     colour[0, 1] = (255, 255, 255)
     colour[0, 2] = (128, 128, 128)
     Image.fromarray(colour).save(tmp_path / "colour.png")
-    assert read_seeds(tmp_path / "colour.png").tolist() == [[0, 1, 2]]
+    assert read_seeds(tmp_path / "colour.png").tolist() == [[2, 1, 0]]
+
+
+def _trimap(shape=(40, 40)):
+    """A disc trimap: white inside, a mid-gray band around the edge, black outside."""
+    rr, cc = np.ogrid[:shape[0], :shape[1]]
+    r = np.hypot(rr - shape[0] / 2, cc - shape[1] / 2)
+    return np.where(r < 10, 255, np.where(r < 14, 128, 0)).astype(np.uint8)
+
+
+def test_a_trimap_is_read_without_warning(tmp_path):
+    trimap = _trimap()
+    Image.fromarray(trimap).save(tmp_path / "trimap.png")
+    seeds = read_seeds(tmp_path / "trimap.png")  # filterwarnings=error: no warning
+    assert np.array_equal(seeds == 1, trimap == 255)
+    assert np.array_equal(seeds == 0, trimap == 128)
+    assert np.array_equal(seeds == 2, trimap == 0)
+
+
+def test_markers_in_the_other_convention_are_named_in_a_warning(tmp_path):
+    # strokes on a black canvas, white ones and mid-gray ones apart: drawn for the
+    # reading "black unknown, mid-gray background"
+    marker = np.zeros((40, 40), np.uint8)
+    marker[18:21, 14:26] = 255
+    marker[3:5, 3:30] = 128
+    marker[35:37, 8:36] = 128
+    Image.fromarray(marker).save(tmp_path / "strokes.png")
+    with pytest.warns(SegcutWarning, match=r"strokes\.png: this seed image looks drawn with "
+                                           r"black as unknown"):
+        seeds = read_seeds(tmp_path / "strokes.png")
+    assert (seeds == 2).sum() == (marker == 0).sum()  # still read as a trimap
+    # the same strokes on a mid-gray canvas (a trimap) give no warning
+    trimap = np.where(marker == 128, 0, np.where(marker == 0, 128, marker)).astype(np.uint8)
+    Image.fromarray(trimap).save(tmp_path / "trimap_strokes.png")
+    read_seeds(tmp_path / "trimap_strokes.png")
 
 
 def test_read_seeds_transparent_layer(tmp_path):
     # Markers drawn on a transparent layer: transparent pixels are unknown even when
-    # they store white; opaque white is foreground, opaque gray background.
+    # they store white; opaque white is foreground, opaque black background.
     layer = np.zeros((2, 3, 4), np.uint8)
     layer[..., :3] = 255  # transparent white everywhere
     layer[0, 1] = (255, 255, 255, 255)
-    layer[1, 2] = (128, 128, 128, 255)
+    layer[1, 2] = (0, 0, 0, 255)
     Image.fromarray(layer).save(tmp_path / "layer.png")
     data = read_image(tmp_path / "layer.png")
     assert data.alpha is not None and data.alpha.shape == (2, 3)

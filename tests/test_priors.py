@@ -70,3 +70,16 @@ def test_registry():
         get_prior("left")
     register_prior("test_everything_fg", lambda shape, cfg: np.ones(shape), replace_existing=True)
     assert get_prior("test_everything_fg").pixel_map((2, 2), SplitConfig()).sum() == 4
+
+
+def test_conflicting_seeds_in_one_region_are_reported_with_the_pixels_overruled():
+    # counted by hand: region 0 holds 3 foreground and 1 background seed pixels, region 1
+    # 1 foreground and 2 background; region 2 is unseeded
+    from segcut.priors import seeded_regions
+
+    labels = np.array([[0, 0, 0, 0, 1, 1, 1, 2]])
+    seeds = np.array([[1, 1, 1, 2, 1, 2, 2, 0]])
+    kinds, warnings = seeded_regions(labels, seeds)
+    assert kinds.tolist() == [1, -1, 0]
+    assert len(warnings) == 1
+    assert "2 superpixel(s) hold both" in warnings[0] and "overruling 2 seed pixel(s)" in warnings[0]

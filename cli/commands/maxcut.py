@@ -23,7 +23,7 @@ def _format_number(value) -> str:
     return f"{value:.10g}"
 
 
-def maxcut(graph_path, *, method: str = "tabu", time_limit: float | None = None, seed: int = 0,
+def maxcut(graph_path, *, method: str = "auto", time_limit: float | None = None, seed: int = 0,
            as_json: bool = False, sides_path=None) -> int:
     """Read a graph file, solve max-cut, print the answer; return the exit code.
 

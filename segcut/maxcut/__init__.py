@@ -23,6 +23,7 @@ from . import tabu  # noqa: F401,E402  (registers "tabu", the default)
 from . import exact  # noqa: F401,E402  (registers "exact")
 from . import sdp  # noqa: F401,E402  (registers "sdp")
 from . import flow  # noqa: F401,E402  (registers "flow")
+from . import auto  # noqa: F401,E402  (registers "auto", the portfolio)
 
 __all__ = [
     "CutResult",

@@ -123,12 +123,26 @@ class MaxcutMethod:
         The keyword options ``solve`` accepts besides ``time_limit`` and ``rng``.
     description : str
         One line for listings (``segcut maxcut --help``).
+    warm_start : bool
+        True when ``solve`` takes a ``start`` option (an ``(n,)`` array of +-1) and
+        searches from it, so a caller holding a good split can hand it over (the
+        image pipeline passes the split of its colour-model rounds). Declared by
+        the method, never guessed from its option names.
     """
 
     name: str
     solve: Callable
     options: frozenset = frozenset()
     description: str = ""
+    warm_start: bool = False
+
+    def __post_init__(self):
+        if not isinstance(self.warm_start, bool):
+            raise TypeError(f"warm_start of max-cut method {self.name!r} must be True or False; "
+                            f"got {self.warm_start!r}")
+        if self.warm_start and "start" not in self.options:
+            raise ValueError(f"max-cut method {self.name!r} declares warm_start but takes no "
+                             "'start' option")
 
 
 _REGISTRY: dict[str, MaxcutMethod] = {}
@@ -136,7 +150,7 @@ _ENTRY_POINTS_LOADED = False
 
 
 def register_method(name: str, solve: Callable, *, options=None, description: str = "",
-                    replace_existing: bool = False) -> MaxcutMethod:
+                    warm_start: bool = False, replace_existing: bool = False) -> MaxcutMethod:
     """Register a max-cut back-end under ``name``.
 
     Parameters
@@ -150,6 +164,8 @@ def register_method(name: str, solve: Callable, *, options=None, description: st
         than ``time_limit`` and ``rng``.
     description : str
         One line for listings; by default the first line of ``solve.__doc__``.
+    warm_start : bool, default False
+        The method searches from a given ``start`` (see :class:`MaxcutMethod`).
     replace_existing : bool
         Allow replacing a method of the same name.
 
@@ -175,7 +191,7 @@ def register_method(name: str, solve: Callable, *, options=None, description: st
                    if p.kind == p.KEYWORD_ONLY and p.name not in ("time_limit", "rng")]
     description = description or first_doc_line(solve)
     method = MaxcutMethod(name=name, solve=solve, options=frozenset(options),
-                          description=description)
+                          description=description, warm_start=warm_start)
     _REGISTRY[name] = method
     return method
 

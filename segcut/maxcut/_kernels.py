@@ -888,3 +888,112 @@ def ascend_heap(indptr, indices, weights, sides, gains, tie, heap, hpos, tol, ma
         max_heap_sift(heap, hpos, hpos[v], gains, tie)
         moves += 1
     return moves
+
+
+@njit(cache=True)
+def ascend_many(indptr, indices, weights, starts, n_empty, values, rng_state, max_gain, tol):
+    """1-flip ascents, one per row of ``starts`` (filled and changed here).
+
+    The first ``n_empty`` rows start from the empty cut (every side +1) and climb by
+    steepest ascent, ties among largest gains at random (``rng_state``); the others
+    start from random sides. With ``max_gain >= 0`` every move comes from gain
+    buckets (whole-number weights, weighted degrees up to ``max_gain``) and the
+    random rows climb by steepest ascent too; otherwise the empty rows use an
+    indexed max-heap and the random rows first improvement in a random order.
+    ``values[r]`` receives the cut value reached, from the gains:
+    ``cut = (sum_{i<j} w_ij - sum_i gain_i / 2) / 2``. Returns the flips made in all.
+    """
+    n = starts.shape[1]
+    half_total = 0.5 * weights.sum()
+    gains = np.empty(n, dtype=np.float64)
+    order = np.empty(n, dtype=np.int64)
+    pos = np.empty(n, dtype=np.int64)
+    bucket_start = np.zeros(max(max_gain, 0) + 2, dtype=np.int64)
+    tie = np.empty(n, dtype=np.uint64)
+    no_limit = np.iinfo(np.int64).max
+    flips = 0
+    for r in range(starts.shape[0]):
+        sides = starts[r]
+        for i in range(n):
+            if r < n_empty:
+                sides[i] = 1
+            else:
+                sides[i] = 1 if (rand_u64(rng_state) >> np.uint64(63)) == 0 else -1
+        compute_gains(indptr, indices, weights, sides, gains)
+        if max_gain >= 0:
+            ascent_bucket_build(order, pos, bucket_start, gains)
+            flips += ascend_buckets(indptr, indices, weights, sides, gains, order, pos,
+                                    bucket_start, rng_state, no_limit)
+        elif r < n_empty:
+            for i in range(n):
+                tie[i] = rand_u64(rng_state)
+            flips += ascend_heap(indptr, indices, weights, sides, gains, tie, order, pos, tol,
+                                 no_limit)
+        else:
+            for i in range(n):
+                order[i] = i
+            for i in range(n - 1, 0, -1):  # Fisher-Yates shuffle
+                j = rand_below(rng_state, i + 1)
+                order[i], order[j] = order[j], order[i]
+            flips += descend_1flip(indptr, indices, weights, sides, gains, order, tol, no_limit)
+        values[r] = 0.5 * (half_total - 0.5 * gains.sum())
+    return flips
+
+
+@njit(cache=True)
+def kick_and_descend(indptr, indices, weights, sides, gains, n_kicks, strength, rng_state,
+                     tol):
+    """Iterated 1-flip search: kick ``strength`` random vertices, descend, keep if better.
+
+    Each kick flips ``strength`` random vertices and runs a first-improvement descent
+    from the vertices it touched (at most ``n`` flips); when the cut did not rise by
+    more than ``tol`` all its flips are undone in reverse order. ``sides`` and
+    ``gains`` (the gains of ``sides`` on entry) are updated in place; returns the
+    number of kicks kept.
+    """
+    n = sides.shape[0]
+    queue = np.empty(n, dtype=np.int64)
+    queued = np.zeros(n, dtype=np.bool_)
+    log = np.empty(strength + n, dtype=np.int64)
+    kept = 0
+    for _ in range(n_kicks):
+        n_log = 0
+        delta = 0.0
+        head = 0
+        size = 0
+        for _s in range(strength):
+            v = rand_below(rng_state, n)
+            delta += gains[v]
+            flip_vertex(indptr, indices, weights, sides, gains, v)
+            log[n_log] = v
+            n_log += 1
+            for k in range(indptr[v], indptr[v + 1]):
+                j = indices[k]
+                if not queued[j]:
+                    queue[(head + size) % n] = j
+                    queued[j] = True
+                    size += 1
+        moves = 0
+        while size > 0:
+            i = queue[head]
+            head = (head + 1) % n
+            size -= 1
+            queued[i] = False
+            if gains[i] > tol and moves < n:
+                delta += gains[i]
+                flip_vertex(indptr, indices, weights, sides, gains, i)
+                log[n_log] = i
+                n_log += 1
+                moves += 1
+                for k in range(indptr[i], indptr[i + 1]):
+                    j = indices[k]
+                    if not queued[j] and gains[j] > tol:
+                        queue[(head + size) % n] = j
+                        queued[j] = True
+                        size += 1
+        if delta > tol:
+            kept += 1
+        else:
+            for t in range(n_log - 1, -1, -1):
+                flip_vertex(indptr, indices, weights, sides, gains, log[t])
+    return kept

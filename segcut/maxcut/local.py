@@ -13,8 +13,12 @@ always ends at a 1-flip local optimum. Two rules pick the next flip:
     buckets (O(degree) per flip for small weights); other weights in an indexed
     max-heap (O(degree log n) per flip at worst).
 
-The start is random by default, ``"empty"`` (every vertex on side +1, the cut of
-value 0), or given as an array of +-1.
+Method ``"local"`` at its defaults is an iterated 1-flip search: the best of
+:data:`DEFAULT_STARTS` ascents from the empty cut (every vertex on side +1, the cut
+of value 0, where networkx's ``one_exchange`` starts) and from random splits, then
+kicks of :data:`KICK_STRENGTH` random flips, each followed by a descent and kept only
+when the cut rose. A given start (``"empty"``, ``"random"`` or an array of +-1) runs
+one descent by ``rule`` from there.
 """
 
 from __future__ import annotations
@@ -25,7 +29,7 @@ from ..graph import SignedGraph, cut_value, validate_sides
 from . import _kernels
 from ._common import CutResult, register_method
 
-__all__ = ["descend", "flip_gains", "gain_tolerance", "RULES"]
+__all__ = ["descend", "flip_gains", "gain_tolerance", "RULES", "DEFAULT_STARTS", "KICK_STRENGTH"]
 
 #: The move rules of :func:`descend` and of method ``"local"``.
 RULES = ("first", "best")
@@ -186,30 +190,95 @@ def descend(graph: SignedGraph, sides, *, rng=None, max_moves: int | None = None
     return x, int(moves)
 
 
-def _solve_local(graph: SignedGraph, *, time_limit=None, rng=None, start=None,
-                 rule="first") -> CutResult:
-    """One 1-flip descent, first or best improvement: fast, always a 1-flip local optimum.
+#: Ascents of method ``"local"`` at its defaults.
+DEFAULT_STARTS = 8
+#: Vertices flipped by each kick of the iterated search of method ``"local"``.
+KICK_STRENGTH = 2
 
-    It starts from a random split, from ``start="empty"`` (all vertices on side +1)
-    or from a given ``start``."""
+
+def _multi_start(graph: SignedGraph, rng, n_starts: int, tol: float):
+    """Best of ``n_starts`` ascents (see :func:`_solve_local`); ties between ends go to
+    the earlier. Returns (sides, value, flips)."""
+    n = graph.n_vertices
+    degrees = _weighted_degrees(graph)
+    buckets = n > 0 and _buckets_fit(graph, degrees)
+    max_gain = int(degrees.max()) if buckets else -1
+    starts = np.empty((n_starts, n), dtype=np.int8)
+    values = np.empty(n_starts, dtype=np.float64)
+    rng_state = np.array([rng.integers(1, 2 ** 63, dtype=np.int64)], dtype=np.uint64)
+    flips = _kernels.ascend_many(graph.indptr, graph.indices, graph.weights, starts,
+                                 (n_starts + 1) // 2 if buckets else 1, values, rng_state,
+                                 max_gain, tol)
+    best = 0
+    for k in range(1, n_starts):
+        if values[k] > values[best] + tol:
+            best = k
+    return starts[best].copy(), float(values[best]), int(flips)
+
+
+def _kick(graph: SignedGraph, sides, rng, n_kicks: int, tol: float):
+    """``n_kicks`` kicks of :data:`KICK_STRENGTH` random flips, each followed by a
+    first-improvement descent and kept only when the cut rose; ends with a full
+    descent, so the answer is a 1-flip local optimum. Returns (sides, value, kicks kept),
+    the value from the gains: ``(sum_{i<j} w_ij - sum_i gain_i / 2) / 2``."""
+    x = np.ascontiguousarray(sides, dtype=np.int8).copy()
+    gains = np.empty(graph.n_vertices, dtype=np.float64)
+    _kernels.compute_gains(graph.indptr, graph.indices, graph.weights, x, gains)
+    rng_state = np.array([rng.integers(1, 2 ** 63, dtype=np.int64)], dtype=np.uint64)
+    kept = _kernels.kick_and_descend(graph.indptr, graph.indices, graph.weights, x, gains,
+                                     n_kicks, KICK_STRENGTH, rng_state, tol)
+    _kernels.descend_1flip(graph.indptr, graph.indices, graph.weights, x, gains,
+                           np.arange(graph.n_vertices, dtype=np.int64), tol,
+                           np.iinfo(np.int64).max)
+    value = 0.5 * (0.5 * float(graph.weights.sum()) - 0.5 * float(gains.sum()))
+    return x, value, int(kept)
+
+
+def _solve_local(graph: SignedGraph, *, time_limit=None, rng=None, start=None,
+                 rule="first", n_starts=DEFAULT_STARTS, n_kicks=None) -> CutResult:
+    """Iterated 1-flip search from a few ascents (default), or one descent from a given start.
+
+    By default ``n_starts`` ascents run and the best is improved by ``n_kicks``
+    kicks (default ``n // 3``): :data:`KICK_STRENGTH` random flips, a
+    first-improvement descent, kept only when the cut rose. With small
+    whole-number weights (gains tie often; moves from gain buckets) half the ascents
+    are steepest ascents from the empty cut (all vertices on side +1, as networkx's
+    ``one_exchange`` starts), each breaking ties at random differently, and half
+    steepest ascents from random splits. Otherwise one steepest ascent from the
+    empty cut (distinct gains: the moves of ``one_exchange``) and first-improvement
+    descents from random splits. ``start="empty"``, ``"random"`` or an array of +-1
+    runs one descent by ``rule`` from there instead. Always a 1-flip local optimum."""
     if rule not in RULES:
         raise ValueError(f"rule must be one of {', '.join(RULES)}; got {rule!r}")
+    for name, value, low in (("n_starts", n_starts, 1), ("n_kicks", n_kicks, 0)):
+        if value is not None and (isinstance(value, bool)
+                                  or not isinstance(value, (int, np.integer)) or value < low):
+            raise ValueError(f"{name} must be an integer >= {low}; got {value!r}")
     rng = np.random.default_rng(rng)
-    if start is None:
-        x0 = rng.choice(np.array([-1, 1], dtype=np.int8), size=graph.n_vertices)
-    elif isinstance(start, str):
-        if start != "empty":
-            raise ValueError(f"start must be None, 'empty' or an array of +-1; got {start!r}")
-        x0 = np.ones(graph.n_vertices, dtype=np.int8)
-    else:
-        x0 = validate_sides(graph, start)
-    sides, moves = descend(graph, x0, rng=rng, rule=rule)
-    value = cut_value(graph, sides)
     kind = "best" if rule == "best" else "first"
+    if start is None:
+        tol = gain_tolerance(graph)
+        sides, _, moves = _multi_start(graph, rng, int(n_starts), tol)
+        kicks = graph.n_vertices // 3 if n_kicks is None else int(n_kicks)
+        sides, value, kept = _kick(graph, sides, rng, kicks, tol)
+        how = (f"best of {n_starts} ascents from the empty cut and random splits, then "
+               f"{kicks} kicks ({kept} kept)")
+    else:
+        if isinstance(start, str):
+            if start not in ("empty", "random"):
+                raise ValueError("start must be None, 'empty', 'random' or an array of +-1; "
+                                 f"got {start!r}")
+            x0 = (np.ones(graph.n_vertices, dtype=np.int8) if start == "empty" else
+                  rng.choice(np.array([-1, 1], dtype=np.int8), size=graph.n_vertices))
+        else:
+            x0 = validate_sides(graph, start)
+        sides, moves = descend(graph, x0, rng=rng, rule=rule)
+        how = f"{kind} improvement"
+        value = cut_value(graph, sides)
     return CutResult(sides=sides, value=value, upper_bound=None, gap=None, method="local",
                      status="local_optimum",
-                     message=f"1-flip local optimum after {moves} flips ({kind} improvement)",
+                     message=f"1-flip local optimum ({how}; {moves} flips in the ascents)",
                      n_iter=moves)
 
 
-register_method("local", _solve_local)
+register_method("local", _solve_local, warm_start=True)

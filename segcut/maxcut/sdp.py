@@ -64,6 +64,9 @@ from ._common import CutResult, register_method
 from .local import descend
 
 __all__ = [
+    "SdpSettings",
+    "THOROUGH",
+    "QUICK",
     "SdpSolution",
     "SDP_STATUSES",
     "solve_sdp_relaxation",
@@ -80,6 +83,31 @@ SDP_STATUSES = {
     "iteration_limit": "max_sweeps ran out (or the sweeps stalled) before the gap reached tol",
     "time_limit": "the time limit stopped the sweeps before the gap reached tol",
 }
+
+
+
+@dataclass(frozen=True)
+class SdpSettings:
+    """How hard the relaxation is solved and how many roundings are tried.
+
+    Attributes
+    ----------
+    tol : float
+        Target certified relative gap between the bound and the relaxation value.
+    n_hyperplanes : int
+        Random hyperplanes of the Goemans-Williamson rounding.
+    """
+
+    tol: float
+    n_hyperplanes: int
+
+
+#: Settings of method ``"sdp"`` and of the SDP start of method ``"tabu"``.
+THOROUGH = SdpSettings(tol=1e-4, n_hyperplanes=100)
+#: Settings of method ``"auto"`` (run on every image of a split, and behind the
+#: bound of :func:`segcut.score`): a bound within 1e-3 of the relaxation, and a
+#: few roundings as starts for tabu search, which does the rest.
+QUICK = SdpSettings(tol=1e-3, n_hyperplanes=20)
 
 _EPS = float(np.finfo(np.float64).eps)
 _DENSE_LIMIT = 3000        # largest n certified with a dense Cholesky factorisation
@@ -441,7 +469,7 @@ def _positive_weight_bound(graph: SignedGraph) -> float:
     return float(np.nextafter(math.fsum(w[w > 0]) / 2.0, math.inf))
 
 
-def solve_sdp_relaxation(graph, *, tol: float = 1e-4, max_sweeps: int = 20000,
+def solve_sdp_relaxation(graph, *, tol: float = THOROUGH.tol, max_sweeps: int = 20000,
                          rank: int | None = None, time_limit: float | None = None,
                          rng=None) -> SdpSolution:
     """Solve the max-cut semidefinite relaxation in low rank, with a certified bound.
@@ -499,7 +527,6 @@ def solve_sdp_relaxation(graph, *, tol: float = 1e-4, max_sweeps: int = 20000,
     k = default_rank(n) if rank is None else _check_positive_int("rank", rank)
     rng = np.random.default_rng(rng)
     start = time.perf_counter()
-    deadline = None if time_limit is None else start + time_limit
 
     factor = rng.standard_normal((n, k))
     norms = np.linalg.norm(factor, axis=1)
@@ -510,107 +537,137 @@ def solve_sdp_relaxation(graph, *, tol: float = 1e-4, max_sweeps: int = 20000,
                            dual=np.zeros(n), n_sweeps=0, seconds=time.perf_counter() - start,
                            certified=True, status="optimal", gap=0.0,
                            message="no edges: every cut and the relaxation are 0")
+    run = _MixingRun(graph, factor, tol)
+    run.sweep(max_sweeps, time_limit, start)
+    return run.solution(start)
 
-    indptr, indices, weights = graph.indptr, graph.indices, graph.weights
-    degrees = graph.degrees
-    twice_total = float(weights.sum())
-    floor = _gap_floor(graph)
-    scratch = np.empty(k, dtype=np.float64)
-    objective = _sdp_kernels.factor_objective(indptr, indices, weights, factor)
 
-    best: _Certificate | None = None
-    certified_at = -1
-    bound_seconds = 0.0
-    last_check_seconds = 0.0
-    # The certified gap shrinks roughly like the square root of the relative change
-    # of the objective per sweep (gap ~ 0.2-0.4 sqrt(change) on G-set graphs). A
-    # sweep costs far less than a certificate, so check first well past the point
-    # where that law predicts the target, then where it predicts it again.
-    next_check = tol ** 2
-    # ...and in any case every `check_every` sweeps, in case the change per sweep
-    # stalls above the threshold while the gap is already small
-    check_every = 1000
-    sweeps = 0
-    status = None
-    relative_change = math.inf
+class _MixingRun:
+    """State of one relaxation solve: the factor, its objective and the best certificate.
 
-    def primal_of(obj):
-        return (twice_total - obj) / 4.0
+    The certified gap shrinks roughly like the square root of the relative change of
+    the objective per sweep (gap ~ 0.2-0.4 sqrt(change) on G-set graphs). A sweep costs
+    far less than a certificate, so the first check comes well past the point where
+    that law predicts the target, the next where it predicts it again, and in any case
+    every ``check_every`` sweeps (doubling), in case the change per sweep stalls above
+    the threshold while the gap is already small.
+    """
 
-    def check(expected_gap=0.0, tighten=3):
-        nonlocal best, certified_at, bound_seconds, last_check_seconds, objective
-        objective = _sdp_kernels.factor_objective(indptr, indices, weights, factor)
+    def __init__(self, graph: SignedGraph, factor: np.ndarray, tol: float):
+        self.graph, self.factor, self.tol = graph, factor, tol
+        self.twice_total = float(graph.weights.sum())
+        self.floor = _gap_floor(graph)
+        self.scratch = np.empty(factor.shape[1], dtype=np.float64)
+        self.objective = self._factor_objective()
+        self.best: _Certificate | None = None
+        self.certified_at = -1
+        self.bound_seconds = 0.0
+        self.last_check_seconds = 0.0
+        self.next_check = tol ** 2
+        self.check_every = 1000
+        self.sweeps = 0
+        self.status = None
+        self.relative_change = math.inf
+
+    def _factor_objective(self) -> float:
+        g = self.graph
+        return _sdp_kernels.factor_objective(g.indptr, g.indices, g.weights, self.factor)
+
+    def primal(self) -> float:
+        return (self.twice_total - self.objective) / 4.0
+
+    def check(self, expected_gap: float = 0.0, tighten: int = 3) -> float:
+        """Certify the current factor; return the certified gap (inf when unconfirmed)."""
+        g, n = self.graph, self.graph.n_vertices
+        self.objective = self._factor_objective()
         y = np.empty(n, dtype=np.float64)
-        _sdp_kernels.dual_estimate(indptr, indices, weights, factor, degrees, y)
+        _sdp_kernels.dual_estimate(g.indptr, g.indices, g.weights, self.factor, g.degrees, y)
         # a shift that meets half the tolerance (n s <= tol * bound / 2), or the
         # expected gap when the sweeps stopped early
-        target = max(0.5 * tol, expected_gap) * max(abs(primal_of(objective)), floor) / max(n, 1)
-        cert = _certify(graph, y, target_shift=target, dense_limit=_DENSE_LIMIT, tighten=tighten)
-        bound_seconds += cert.seconds
-        last_check_seconds = cert.seconds
-        certified_at = sweeps
+        target = (max(0.5 * self.tol, expected_gap) * max(abs(self.primal()), self.floor)
+                  / max(n, 1))
+        cert = _certify(g, y, target_shift=target, dense_limit=_DENSE_LIMIT, tighten=tighten)
+        self.bound_seconds += cert.seconds
+        self.last_check_seconds = cert.seconds
+        self.certified_at = self.sweeps
+        best = self.best
         if cert.certified and (best is None or not best.certified or cert.bound < best.bound):
-            best = cert
+            self.best = cert
         elif best is None:
-            best = cert
-        return _relaxation_gap(primal_of(objective), best.bound, floor) if best.certified else math.inf
+            self.best = cert
+        if not self.best.certified:
+            return math.inf
+        return _relaxation_gap(self.primal(), self.best.bound, self.floor)
 
-    while True:
-        if sweeps >= max_sweeps:
-            status = "iteration_limit"
-            break
-        if deadline is not None:
+    def _out_of_budget(self, max_sweeps, time_limit, start) -> bool:
+        if self.sweeps >= max_sweeps:
+            self.status = "iteration_limit"
+            return True
+        if time_limit is not None:
             # keep time for the last certificate: as long as the last one took, or
             # 30% of the limit before any was measured
-            reserve = last_check_seconds if certified_at >= 0 else 0.3 * time_limit
-            if time.perf_counter() + reserve >= deadline:
-                status = "time_limit"
-                break
-        change = _sdp_kernels.mixing_sweep(indptr, indices, weights, factor, scratch)
-        sweeps += 1
-        objective += change
-        primal = primal_of(objective)
-        relative_change = abs(change) / 4.0 / max(abs(primal), floor)
-        if relative_change <= next_check or sweeps - certified_at >= check_every:
-            if relative_change > next_check:
-                check_every *= 2  # a check the schedule did not ask for: space them out
-            gap = check()
-            if gap <= tol:
-                status = "gap_reached"
-                break
-            if relative_change <= _STALL_CHANGE:
-                status = "iteration_limit"
-                break
-            if math.isfinite(gap) and gap > 0:
-                next_check = relative_change * min(0.25, (0.5 * tol / gap) ** 2)
+            reserve = self.last_check_seconds if self.certified_at >= 0 else 0.3 * time_limit
+            if time.perf_counter() + reserve >= start + time_limit:
+                self.status = "time_limit"
+                return True
+        return False
+
+    def sweep(self, max_sweeps: int, time_limit, start: float) -> None:
+        """Mixing sweeps until the certified gap meets ``tol`` or a budget runs out."""
+        g = self.graph
+        while not self._out_of_budget(max_sweeps, time_limit, start):
+            change = _sdp_kernels.mixing_sweep(g.indptr, g.indices, g.weights, self.factor,
+                                               self.scratch)
+            self.sweeps += 1
+            self.objective += change
+            self.relative_change = abs(change) / 4.0 / max(abs(self.primal()), self.floor)
+            if self.relative_change <= self.next_check \
+                    or self.sweeps - self.certified_at >= self.check_every:
+                if self.relative_change > self.next_check:
+                    self.check_every *= 2  # a check the schedule did not ask for: space them
+                gap = self.check()
+                if gap <= self.tol:
+                    self.status = "gap_reached"
+                    return
+                if self.relative_change <= _STALL_CHANGE:
+                    self.status = "iteration_limit"
+                    return
+                if math.isfinite(gap) and gap > 0:
+                    self.next_check = self.relative_change * min(0.25,
+                                                                  (0.5 * self.tol / gap) ** 2)
+                else:
+                    self.next_check = 0.5 * self.relative_change
+
+    def solution(self, start: float) -> SdpSolution:
+        """The last certificate (if the sweeps moved since) and the answer."""
+        if self.certified_at != self.sweeps:
+            if self.status == "time_limit":
+                # far from converged: start the ladder near the gap the square-root law
+                # predicts, and spend no time tightening
+                self.check(expected_gap=min(0.5, 0.5 * math.sqrt(self.relative_change)),
+                           tighten=0)
             else:
-                next_check = 0.5 * relative_change
-    if certified_at != sweeps:
-        if status == "time_limit":
-            # far from converged: start the ladder near the gap the square-root law
-            # predicts, and spend no time tightening
-            check(expected_gap=min(0.5, 0.5 * math.sqrt(relative_change)), tighten=0)
+                self.check()
+        primal, best, status = self.primal(), self.best, self.status
+        if status == "iteration_limit" and best.certified \
+                and _relaxation_gap(primal, best.bound, self.floor) <= self.tol:
+            status = "gap_reached"
+        if best.certified:
+            bound, dual = best.bound, best.dual
+            gap = _relaxation_gap(primal, bound, self.floor)
+            message = (f"{status}: certified relative gap {gap:.3g} after {self.sweeps} "
+                       f"sweeps (bound {bound:.10g}, relaxation {primal:.10g})")
         else:
-            check()
-    primal = primal_of(objective)
-    if status == "iteration_limit" and best.certified and _relaxation_gap(primal, best.bound, floor) <= tol:
-        status = "gap_reached"
-    if best.certified:
-        bound, dual, certified = best.bound, best.dual, True
-        gap = _relaxation_gap(primal, bound, floor)
-        message = (f"{status}: certified relative gap {gap:.3g} after {sweeps} sweeps "
-                   f"(bound {bound:.10g}, relaxation {primal:.10g})")
-    else:
-        bound = _positive_weight_bound(graph)
-        gap = _relaxation_gap(primal, bound, floor)
-        dual = best.dual
-        certified = False
-        message = (f"{status}: the SDP dual bound could not be confirmed by a factorisation; "
-                   f"upper_bound falls back to the sum of positive weights {bound:.10g}")
-    return SdpSolution(factor=factor, relaxation_value=float(primal), upper_bound=float(bound),
-                       dual=dual, n_sweeps=sweeps, seconds=time.perf_counter() - start,
-                       certified=certified, status=status, gap=gap, bound_seconds=bound_seconds,
-                       message=message)
+            bound, dual = _positive_weight_bound(self.graph), best.dual
+            gap = _relaxation_gap(primal, bound, self.floor)
+            message = (f"{status}: the SDP dual bound could not be confirmed by a "
+                       "factorisation; upper_bound falls back to the sum of positive weights "
+                       f"{bound:.10g}")
+        return SdpSolution(factor=self.factor, relaxation_value=float(primal),
+                           upper_bound=float(bound), dual=dual, n_sweeps=self.sweeps,
+                           seconds=time.perf_counter() - start, certified=best.certified,
+                           status=status, gap=gap, bound_seconds=self.bound_seconds,
+                           message=message)
 
 
 # --------------------------------------------------------------------------- rounding
@@ -637,7 +694,8 @@ def _hyperplane_signs(graph: SignedGraph, factor: np.ndarray, n_hyperplanes: int
     return signs, values
 
 
-def hyperplane_cut_values(graph, factor, *, n_hyperplanes: int = 100, rng=None) -> np.ndarray:
+def hyperplane_cut_values(graph, factor, *, n_hyperplanes: int = THOROUGH.n_hyperplanes,
+                          rng=None) -> np.ndarray:
     """Cut values of Goemans-Williamson roundings by random hyperplanes (no polish).
 
     Vertex ``i`` goes to side ``sign(<v_i, r>)`` for a Gaussian normal vector ``r``;
@@ -672,7 +730,7 @@ def hyperplane_cut_values(graph, factor, *, n_hyperplanes: int = 100, rng=None) 
     return _hyperplane_signs(graph, factor, n_hyperplanes, np.random.default_rng(rng))[1]
 
 
-def round_hyperplanes(graph, factor, *, n_hyperplanes: int = 100, rng=None,
+def round_hyperplanes(graph, factor, *, n_hyperplanes: int = THOROUGH.n_hyperplanes, rng=None,
                       polish: bool = True, n_polish: int = 8) -> np.ndarray:
     """Goemans-Williamson rounding of a factor by many random hyperplanes at once.
 
@@ -724,8 +782,9 @@ def round_hyperplanes(graph, factor, *, n_hyperplanes: int = 100, rng=None,
 
 # --------------------------------------------------------------------------- the method
 
-def _solve_sdp(graph: SignedGraph, *, time_limit=None, rng=None, tol: float = 1e-4,
-               max_sweeps: int = 20000, rank: int | None = None, n_hyperplanes: int = 100,
+def _solve_sdp(graph: SignedGraph, *, time_limit=None, rng=None, tol: float = THOROUGH.tol,
+               max_sweeps: int = 20000, rank: int | None = None,
+               n_hyperplanes: int = THOROUGH.n_hyperplanes,
                polish: bool = True) -> CutResult:
     """SDP relaxation with a certified upper bound, Goemans-Williamson rounding and 1-flip polish."""
     tol = _check_tol(tol)

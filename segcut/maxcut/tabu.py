@@ -76,8 +76,10 @@ def _sdp_start(graph: SignedGraph, *, time_limit, rng):
     """Rounded, 1-flip polished SDP start and the certified bound."""
     from . import sdp  # noqa: PLC0415 - optional at import time, the SDP side is separate
 
-    solution = sdp.solve_sdp_relaxation(graph, tol=1e-4, time_limit=time_limit, rng=rng)
-    sides = sdp.round_hyperplanes(graph, solution.factor, n_hyperplanes=100, rng=rng)
+    solution = sdp.solve_sdp_relaxation(graph, tol=sdp.THOROUGH.tol, time_limit=time_limit,
+                                        rng=rng)
+    sides = sdp.round_hyperplanes(graph, solution.factor,
+                                  n_hyperplanes=sdp.THOROUGH.n_hyperplanes, rng=rng)
     sides, _ = descend(graph, sides, rng=rng)
     return sides, float(solution.upper_bound)
 
@@ -148,6 +150,54 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
     if n < 2 or graph.n_edges == 0:
         info["reason"] = "target"
         return best, info
+    base, spread, stall, min_strength, max_strength = _search_parameters(
+        n, tenure, tenure_spread, stall_moves)
+    size = 1 << max(1, (n - 1).bit_length())
+    gains = np.empty(n, dtype=np.float64)
+    tie = np.empty(n, dtype=np.uint64)
+    tabu = np.zeros(n, dtype=np.int8)
+    tabu_until = np.zeros(n, dtype=np.int64)
+    win_free = np.empty(2 * size, dtype=np.int64)
+    win_tabu = np.empty(2 * size, dtype=np.int64)
+    heap_cap = base + spread + 3 + max_strength
+    istate = np.zeros(_kernels.TS_N_ISTATE, dtype=np.int64)
+    fstate = np.zeros(_kernels.TS_N_FSTATE, dtype=np.float64)
+    rng_state = np.array([rng.integers(1, 2 ** 63, dtype=np.int64)], dtype=np.uint64)
+    tol = gain_tolerance(graph)
+    goal = math.inf if target is None else float(target) - tol
+    args = (graph.indptr, graph.indices, graph.weights, x, gains, tie, tabu, tabu_until,
+            win_free, win_tabu, size)
+    selection, max_degree = _choose_selection(graph, selection, size)
+    info["selection"] = selection
+    _kernels.tabu_init(*args, best, istate, fstate, rng_state, min_strength)
+    if selection == "buckets":
+        offset = int(max_degree) + 1
+        order, pos = np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)
+        start_of = np.zeros(2 * offset + 1, dtype=np.int64)
+        istate[_kernels.TS_TOP] = _kernels.bucket_build(order, pos, start_of, gains, tabu, offset)
+        bucket_args = (graph.indptr, graph.indices, graph.weights, x, gains, tie, tabu,
+                       tabu_until, order, pos, start_of, offset)
+    heaps = (np.empty(heap_cap, dtype=np.int64), np.empty(heap_cap, dtype=np.int64))
+    flipped = np.empty(max_strength, dtype=np.int64)
+
+    def run(step):
+        if selection == "buckets":
+            _kernels.tabu_search_buckets(*bucket_args, *heaps, best, istate, fstate, rng_state,
+                                         base, spread, stall, min_strength, max_strength, goal,
+                                         step, flipped, keep_jump)
+        else:
+            _kernels.tabu_search(*args, *heaps, best, istate, fstate, rng_state, base, spread,
+                                 stall, min_strength, max_strength, tol, goal, step,
+                                 selection == "scan", flipped, keep_jump)
+
+    info["reason"] = _run_in_chunks(run, istate, fstate, goal, max_moves, time_limit)
+    info["moves"] = int(istate[_kernels.TS_MOVE])
+    info["perturbations"] = int(istate[_kernels.TS_N_PERTURB])
+    return best, info
+
+
+def _search_parameters(n, tenure, tenure_spread, stall_moves):
+    """Shortest tenure, tenure spread, stall length and perturbation strengths for n vertices."""
     base = max(n // 40, min(3, n // 4), 1) if tenure is None else int(tenure)
     base = min(base, n - 1)
     if tenure_spread is None:
@@ -157,78 +207,49 @@ def tabu_search(graph: SignedGraph, start, *, rng=None, max_moves: int | None = 
     min_strength = max(1, round(0.01 * n))
     # small graphs need relatively larger jumps to leave a local optimum's basin
     max_strength = max(min_strength, round(0.1 * n), min(5, n // 2))
-    size = 1 << max(1, (n - 1).bit_length())
-    gains = np.empty(n, dtype=np.float64)
-    tie = np.empty(n, dtype=np.uint64)
-    tabu = np.zeros(n, dtype=np.int8)
-    tabu_until = np.zeros(n, dtype=np.int64)
-    win_free = np.empty(2 * size, dtype=np.int64)
-    win_tabu = np.empty(2 * size, dtype=np.int64)
-    flipped = np.empty(max_strength, dtype=np.int64)
-    heap_cap = base + spread + 3 + max_strength
-    heap_t = np.empty(heap_cap, dtype=np.int64)
-    heap_v = np.empty(heap_cap, dtype=np.int64)
-    istate = np.zeros(_kernels.TS_N_ISTATE, dtype=np.int64)
-    fstate = np.zeros(_kernels.TS_N_FSTATE, dtype=np.float64)
-    rng_state = np.array([rng.integers(1, 2 ** 63, dtype=np.int64)], dtype=np.uint64)
-    tol = gain_tolerance(graph)
-    goal = math.inf if target is None else float(target) - tol
-    args = (graph.indptr, graph.indices, graph.weights, x, gains, tie, tabu, tabu_until,
-            win_free, win_tabu, size)
+    return base, spread, stall, min_strength, max_strength
+
+
+def _choose_selection(graph: SignedGraph, selection: str, size: int) -> tuple[str, float]:
+    """The move selection "auto" stands for (see :func:`tabu_search`), checked; and the
+    largest weighted degree."""
+    n = graph.n_vertices
     rows = np.repeat(np.arange(n), np.diff(graph.indptr))
     max_degree = float(np.bincount(rows, weights=np.abs(graph.weights), minlength=n).max())
+    buckets_fit = _has_integer_weights(graph) and max_degree <= _MAX_BUCKET_GAIN
     if selection == "auto":
-        if _has_integer_weights(graph) and max_degree <= _MAX_BUCKET_GAIN:
+        if buckets_fit:
             selection = "buckets"
         elif n <= 25.0 * (2 * graph.n_edges / n) * max(1, size.bit_length() - 1):
             selection = "scan"
         else:
             selection = "trees"
-    if selection == "buckets" and not (_has_integer_weights(graph) and max_degree <= _MAX_BUCKET_GAIN):
+    if selection == "buckets" and not buckets_fit:
         raise ValueError("selection='buckets' needs whole-number weights with weighted degrees "
                          f"up to {_MAX_BUCKET_GAIN}")
-    use_scan = selection == "scan"
-    info["selection"] = selection
-    _kernels.tabu_init(*args, best, istate, fstate, rng_state, min_strength)
-    if selection == "buckets":
-        offset = int(max_degree) + 1
-        order = np.empty(n, dtype=np.int64)
-        pos = np.empty(n, dtype=np.int64)
-        start_of = np.zeros(2 * offset + 1, dtype=np.int64)
-        istate[_kernels.TS_TOP] = _kernels.bucket_build(order, pos, start_of, gains, tabu, offset)
-        bucket_args = (graph.indptr, graph.indices, graph.weights, x, gains, tie, tabu,
-                       tabu_until, order, pos, start_of, offset)
+    return selection, max_degree
+
+
+def _run_in_chunks(run, istate, fstate, goal, max_moves, time_limit) -> str:
+    """Call ``run(moves)`` in chunks of about :data:`_CHUNK_SECONDS` until the move budget,
+    the goal or the clock ends the search; returns which one did."""
     budget = np.iinfo(np.int64).max if max_moves is None else int(max_moves)
     clock = time.perf_counter()
     chunk = 2000
     while True:
         left = budget - int(istate[_kernels.TS_MOVE])
         if left <= 0:
-            info["reason"] = "max_moves"
-            break
+            return "max_moves"
         if fstate[_kernels.TS_BEST] >= goal:
-            info["reason"] = "target"
-            break
-        elapsed = time.perf_counter() - clock
-        if time_limit is not None and elapsed >= time_limit:
-            info["reason"] = "time_limit"
-            break
+            return "target"
+        if time_limit is not None and time.perf_counter() - clock >= time_limit:
+            return "time_limit"
         step = min(left, chunk)
         t0 = time.perf_counter()
-        if selection == "buckets":
-            _kernels.tabu_search_buckets(*bucket_args, heap_t, heap_v, best, istate, fstate,
-                                         rng_state, base, spread, stall, min_strength,
-                                         max_strength, goal, step, flipped, keep_jump)
-        else:
-            _kernels.tabu_search(*args, heap_t, heap_v, best, istate, fstate, rng_state,
-                                 base, spread, stall, min_strength, max_strength, tol, goal, step,
-                                 use_scan, flipped, keep_jump)
+        run(step)
         took = time.perf_counter() - t0
         if took > 0:
             chunk = int(min(max(1000, step * _CHUNK_SECONDS / took), 10 * chunk + 1000))
-    info["moves"] = int(istate[_kernels.TS_MOVE])
-    info["perturbations"] = int(istate[_kernels.TS_N_PERTURB])
-    return best, info
 
 
 def _solve_tabu(graph: SignedGraph, *, time_limit=None, rng=None, max_moves=None, start=None,
@@ -319,4 +340,4 @@ def _solve_tabu(graph: SignedGraph, *, time_limit=None, rng=None, max_moves=None
                            "stopped_by": info["reason"]})
 
 
-register_method("tabu", _solve_tabu)
+register_method("tabu", _solve_tabu, warm_start=True)
