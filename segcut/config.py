@@ -141,9 +141,9 @@ class SplitConfig:
         Measure how sure the split is, pixel by pixel (``SplitResult.confidence``
         and ``uncertain_fraction``; see :mod:`segcut.confidence`).
     confidence_margin : float
-        Relative share of the cut value: a region whose cheapest move to the other
-        side (with the regions that follow it) costs this much or more has
-        confidence 1; a free move has 0.5.
+        Share of a region's edge weight (``sum |w|`` of its graph edges): a region
+        whose cheapest move to the other side (with the regions that follow it)
+        costs this much of it or more has confidence 1; a free move has 0.5.
     uncertain_level : float
         Pixels with a confidence below this count as uncertain in
         ``uncertain_fraction``.
@@ -189,7 +189,7 @@ class SplitConfig:
     time_limit: float | None = None
     max_moves: int | None = None
     confidence: bool = True
-    confidence_margin: float = 0.01
+    confidence_margin: float = 1.0
     uncertain_level: float = 0.9
     fill_holes: bool = False
     min_region_size: int = 0

@@ -709,8 +709,7 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     confidence = None
     if config.confidence:
         t0 = time.perf_counter()
-        confidence = split_confidence(ig, sides, mask, final_mask,
-                                      margin=config.confidence_margin)
+        confidence = split_confidence(ig, sides, margin=config.confidence_margin)
         seconds["confidence"] = time.perf_counter() - t0
     graphs = [{"name": "superpixels", "n_vertices": int(ig.graph.n_vertices),
                "value": float(value_after), "upper_bound": bound,
