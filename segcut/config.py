@@ -2,8 +2,9 @@
 
 :class:`SplitConfig` holds every option of :func:`segcut.pipeline.split`. It is
 written as TOML with one table per stage (``[superpixels]``, ``[affinity]``,
-``[prior]``, ``[appearance]``, ``[refine]``, ``[solver]``, ``[confidence]``, ``[cleanup]``) plus the top-level
-``seed``; unknown tables or keys are errors, so a typo never goes unnoticed.
+``[prior]``, ``[appearance]``, ``[refine]``, ``[solver]``, ``[confidence]``,
+``[cleanup]``) plus the top-level ``seed``; unknown tables or keys are errors, so a
+typo never goes unnoticed.
 """
 
 from __future__ import annotations
