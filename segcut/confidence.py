@@ -68,7 +68,7 @@ from .maxcut.local import gain_tolerance  # noqa: E402
 
 __all__ = ["vertex_confidence", "region_confidence", "pixel_confidence", "uncertain_fraction",
            "confident_disagreement", "confident_reference", "split_confidence", "flip_costs",
-           "TIE", "DEFAULT_MARGIN", "DEFAULT_LEVEL"]
+           "confidence_to_uint8", "TIE", "DEFAULT_MARGIN", "DEFAULT_LEVEL"]
 
 #: Confidence of a vertex (or pixel) whose side costs nothing to change.
 TIE = 0.5
@@ -348,3 +348,17 @@ def confident_reference(image_graph, sides, *, margin: float = DEFAULT_MARGIN):
                                                     frame_pixels(image_graph.labels)):
         mask = ~mask
     return mask, split_confidence(image_graph, sides, margin=margin)
+
+
+def confidence_to_uint8(confidence) -> np.ndarray:
+    """The confidence map as 8-bit gray levels: ``round(255 * c)`` (255 = certain).
+
+    What ``segcut split --confidence`` writes as ``confidence/<stem>.png``.
+
+    Examples
+    --------
+    >>> confidence_to_uint8(np.array([[0.0, 0.5, 0.9, 1.0]]))
+    array([[  0, 128, 230, 255]], dtype=uint8)
+    """
+    confidence = np.asarray(confidence, dtype=np.float64)
+    return np.rint(255.0 * np.clip(confidence, 0.0, 1.0)).astype(np.uint8)
