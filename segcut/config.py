@@ -2,8 +2,9 @@
 
 :class:`SplitConfig` holds every option of :func:`segcut.pipeline.split`. It is
 written as TOML with one table per stage (``[superpixels]``, ``[affinity]``,
-``[prior]``, ``[appearance]``, ``[solver]``, ``[cleanup]``) plus the top-level
-``seed``; unknown tables or keys are errors, so a typo never goes unnoticed.
+``[prior]``, ``[appearance]``, ``[refine]``, ``[solver]``, ``[confidence]``,
+``[cleanup]``) plus the top-level ``seed``; unknown tables or keys are errors, so a
+typo never goes unnoticed.
 """
 
 from __future__ import annotations
@@ -47,6 +48,9 @@ SECTIONS = {
     "method": "solver",
     "time_limit": "solver",
     "max_moves": "solver",
+    "confidence": "confidence",
+    "confidence_margin": "confidence",
+    "uncertain_level": "confidence",
     "fill_holes": "cleanup",
     "min_region_size": "cleanup",
     "seed": "",
@@ -137,6 +141,16 @@ class SplitConfig:
     max_moves : int or None
         Deterministic move budget of search methods that take one (None: 20 moves
         per vertex).
+    confidence : bool
+        Measure how sure the split is, pixel by pixel (``SplitResult.confidence``
+        and ``uncertain_fraction``; see :mod:`segcut.confidence`).
+    confidence_margin : float
+        Share of a region's edge weight (``sum |w|`` of its graph edges): a region
+        whose cheapest move to the other side (with the regions that follow it)
+        costs this much of it or more has confidence 1; a free move has 0.5.
+    uncertain_level : float
+        Pixels with a confidence below this count as uncertain in
+        ``uncertain_fraction``.
     fill_holes : bool
         Fill background holes enclosed by the foreground after solving.
     min_region_size : int
@@ -179,6 +193,9 @@ class SplitConfig:
     method: str = "auto"
     time_limit: float | None = None
     max_moves: int | None = None
+    confidence: bool = True
+    confidence_margin: float = 1.0
+    uncertain_level: float = 0.9
     fill_holes: bool = False
     min_region_size: int = 0
     seed: int = 0
@@ -378,8 +395,10 @@ def _validate(cfg: SplitConfig) -> None:
     number("time_limit", lo=0, lo_open=True, allow_none=True)
     number("max_moves", lo=1, integer=True, allow_none=True)
     number("min_region_size", lo=0, integer=True)
+    number("confidence_margin", lo=0, lo_open=True)
+    number("uncertain_level", lo=0, hi=1)
     number("seed", lo=0, integer=True)
-    for name in ("colour_model", "fill_holes", "refine"):
+    for name in ("colour_model", "fill_holes", "refine", "confidence"):
         if not isinstance(getattr(cfg, name), bool):
             raise ValueError(f"{name} must be true or false; got {getattr(cfg, name)!r}")
     for name in ("affinity", "method"):

@@ -35,6 +35,7 @@ import numpy as np
 from .affinity import weigh_pairs
 from .appearance import ModelProblem, border_rule, choose_end_point, run_model_rounds, \
     start_hypotheses
+from .confidence import split_confidence, uncertain_fraction
 from .config import SplitConfig
 from .graph import cut_value, graph_from_edges
 from .image_graph import ImageGraph, PixelContext, frame_pixels, mask_to_sides, vertex_start
@@ -111,6 +112,12 @@ class SplitResult:
         ``value``, ``upper_bound`` and ``gap`` above are those of the superpixel
         graph (the final mask projected onto it); the refinement graph's certify
         the pixel split inside its band.
+    confidence : float64 ndarray, spatial shape of the image, or None
+        How sure the split is at every pixel, in [0, 1] (1 = certain, 0.5 = either
+        side costs the same; see :mod:`segcut.confidence`); None when
+        ``config.confidence`` is off.
+    uncertain_level : float
+        The level below which a pixel counts in :attr:`uncertain_fraction`.
     """
 
     mask: np.ndarray
@@ -133,6 +140,15 @@ class SplitResult:
     hypothesis_disagreement: float = 0.0
     refine_changed_fraction: float = 0.0
     graphs: list = field(default_factory=list)
+    confidence: np.ndarray | None = field(default=None, repr=False)
+    uncertain_level: float = 0.9
+
+    @property
+    def uncertain_fraction(self) -> float | None:
+        """Share of the pixels whose confidence is below ``uncertain_level`` (None: off)."""
+        if self.confidence is None:
+            return None
+        return uncertain_fraction(self.confidence, self.uncertain_level)
 
     def to_record(self) -> dict:
         """The JSON-serialisable statistics of this split (no arrays).
@@ -161,6 +177,8 @@ class SplitResult:
             "hypothesis_disagreement": round(float(self.hypothesis_disagreement), 6),
             "refine_changed_fraction": round(float(self.refine_changed_fraction), 6),
             "graphs": [dict(g) for g in self.graphs],
+            "uncertain_fraction": (None if self.confidence is None
+                                   else round(self.uncertain_fraction, 6)),
         }
 
     def __repr__(self) -> str:
@@ -601,7 +619,9 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     seconds = dict(ig.seconds)
     warnings = list(ig.warnings)
     if ig.orientation == "no_contrast":
-        return _no_contrast_result(ig, seconds, warnings, seed)
+        blank = _no_contrast_result(ig, seconds, warnings, seed)  # one side: nothing to doubt
+        return replace(blank, uncertain_level=config.uncertain_level,
+                       confidence=np.ones(blank.mask.shape) if config.confidence else None)
     t0 = time.perf_counter()
     method, sides, value_before, bound = _solve(ig, config, generator)
     seconds["solve"] = time.perf_counter() - t0
@@ -618,6 +638,11 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     final_sides, _ = mask_to_sides(ig, final_mask)
     value_after = cut_value(ig.graph, final_sides)
     seconds["cleanup"] = time.perf_counter() - t0
+    confidence = None
+    if config.confidence:
+        t0 = time.perf_counter()
+        confidence = split_confidence(ig, sides, margin=config.confidence_margin)
+        seconds["confidence"] = time.perf_counter() - t0
     graphs = [{"name": "superpixels", "n_vertices": int(ig.graph.n_vertices),
                "value": float(value_after), "upper_bound": bound,
                "gap": relative_gap(value_after, bound)}]
@@ -634,7 +659,7 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
         canonical_transform=ig.canonical_transform, hypothesis=ig.hypothesis,
         choice_rule=ig.choice_rule, hypothesis_disagreement=ig.hypothesis_disagreement,
         refine_changed_fraction=float(np.count_nonzero(refined != mask)) / max(mask.size, 1),
-        graphs=graphs)
+        graphs=graphs, confidence=confidence, uncertain_level=config.uncertain_level)
 
 
 def _seed_record(seed):

@@ -674,6 +674,11 @@ class MaskScore:
         Share of the mask's pixels that are foreground.
     rank : int
         1 for the mask with the largest cut value.
+    confident_disagreement : float or None
+        Share of the image's pixels where the mask contradicts segcut's own split
+        of the graph at a pixel whose confidence is at least ``uncertain_level``
+        (:func:`segcut.confidence.confident_disagreement`); None when
+        ``config.confidence`` is off.
     """
 
     name: str
@@ -682,6 +687,7 @@ class MaskScore:
     agreement: float
     foreground_fraction: float
     rank: int
+    confident_disagreement: float | None = None
 
     def to_dict(self) -> dict:
         """Plain JSON-ready dict."""
@@ -759,7 +765,10 @@ def score(image, masks, *, config=None, seeds=None, channel_axis: int | None = -
     seeds and seed), projects each mask onto it (every superpixel takes the side of
     the majority of its pixels) and reports the cut value of each projection, the
     share of pixels that agree with it, and the gap to a certified upper bound
-    computed once for the image and shared by all masks.
+    computed once for the image and shared by all masks. With
+    ``config.confidence`` on, each score also gives the share of pixels where the
+    mask contradicts a confident pixel of segcut's own split of the graph
+    (``confident_disagreement``).
 
     Parameters
     ----------
@@ -817,6 +826,14 @@ def score(image, masks, *, config=None, seeds=None, channel_axis: int | None = -
     [('square', 1, 1.0), ('left half', 2, 1.0)]
     >>> r.masks[0].value <= r.upper_bound
     True
+
+    With colour models the graph finds the square, and a mask that contradicts
+    it where segcut is sure shows it:
+
+    >>> r = score(image, {"square": square, "left half": half},
+    ...           config=SplitConfig(prior=("border",)))
+    >>> [round(m.confident_disagreement, 3) for m in r.masks]
+    [0.0, 0.5]
     """
     from .config import SplitConfig
     from .graph import cut_value
@@ -863,16 +880,35 @@ def score(image, masks, *, config=None, seeds=None, channel_axis: int | None = -
         agreements.append(agreement)
     order = sorted(range(len(values)), key=lambda k: (-values[k], k))
     rank = {k: r + 1 for r, k in enumerate(order)}
+    disagreements = _confident_disagreements(ig, bound_solve.sides, binary, config)
     scores = tuple(
         MaskScore(name=n, value=float(v), gap=relative_gap(v, bound), agreement=float(a),
-                  foreground_fraction=float(b.mean()), rank=rank[k])
-        for k, (n, v, a, b) in enumerate(zip(names, values, agreements, binary))
+                  foreground_fraction=float(b.mean()), rank=rank[k],
+                  confident_disagreement=d)
+        for k, (n, v, a, b, d) in enumerate(zip(names, values, agreements, binary,
+                                                disagreements))
     )
     return ScoreResult(masks=scores, upper_bound=bound, solver_value=float(bound_solve.value),
                        method=bound_solve.method, n_superpixels=ig.n_regions,
                        n_vertices=ig.graph.n_vertices, orientation=ig.orientation,
                        seed=int(seed) if isinstance(seed, (int, np.integer)) else None,
                        image_graph=ig)
+
+
+def _confident_disagreements(ig, sides, masks, config) -> list:
+    """Per mask, the share of pixels contradicting the confident part of segcut's split.
+
+    segcut's split of the graph is the bound solve's cut, oriented as ``split``
+    orients it (:func:`segcut.confidence.confident_reference`); None per mask when
+    ``config.confidence`` is off.
+    """
+    if not config.confidence:
+        return [None] * len(masks)
+    from .confidence import confident_disagreement, confident_reference
+
+    reference, confidence = confident_reference(ig, sides, margin=config.confidence_margin)
+    return [confident_disagreement(m, reference, confidence, config.uncertain_level)
+            for m in masks]
 
 
 # --- helpers ----------------------------------------------------------------------------
