@@ -111,7 +111,7 @@ def main() -> None:
     args = parser.parse_args()
 
     import segcut
-    from segcut.batch import _warm_up
+    from segcut.batch.executors import _warm_up
 
     workdir = Path(args.keep) if args.keep else Path(tempfile.mkdtemp(prefix="bench_batch_"))
     workdir.mkdir(parents=True, exist_ok=True)
