@@ -490,9 +490,15 @@ def test_ctrl_c_exits_130_and_leaves_valid_outputs(tmp_path):
         pass
     _, err = process.communicate(timeout=60)
     assert process.returncode == 130, err.decode()
-    assert err.decode().strip().splitlines()[-1] == "segcut: interrupted"
+    lines = err.decode().strip().splitlines()
+    assert lines[-1] == "segcut: interrupted"
     finished = load_records(out)
     assert 2 <= len(finished) < len(names)
+    # how many finished and how to go on, in one line; the report is rewritten
+    assert lines[-2].startswith(f"segcut: {len(finished)} of 10 images finished")
+    assert "run the same command again" in lines[-2]
+    assert (out / "report.html").read_text(encoding="utf-8").count("<tr data-input=") == len(
+        finished)
     with open(out / "summary.csv", newline="", encoding="utf-8") as fh:
         assert len(list(csv.DictReader(fh))) == len(finished)
     for record in finished.values():
