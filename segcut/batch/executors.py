@@ -263,21 +263,36 @@ def _stop_pool(pool) -> None:
         process.join(timeout=5)
 
 
+def _local_cluster(n_workers: int):
+    """A local Dask cluster of ``n_workers`` single-threaded worker processes, set up for
+    short runs: workers started through a fork server, as the process pool's are (closing
+    such a cluster took 0.05-0.07 s against 1.3-1.8 s for spawned workers, 2 workers on
+    the 2-core machine, three runs each), no statistical profiler sampling the compute
+    thread every 10 ms, and a calmer event loop (both compete for the GIL with the split).
+    """
+    import multiprocessing
+
+    import dask
+    from distributed import LocalCluster
+
+    settings = {"distributed.worker.profile.enabled": False,
+                "distributed.admin.tick.interval": "1s",
+                "distributed.admin.system-monitor.interval": "5s",
+                "distributed.worker.memory.monitor-interval": "1s"}
+    if "forkserver" in multiprocessing.get_all_start_methods():
+        settings["distributed.worker.multiprocessing-method"] = "forkserver"
+    with dask.config.set(settings):
+        return LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
+                            dashboard_address=None, silence_logs=50)
+
+
 def run_dask(tasks: Iterator[Task], *, scheduler: str | None, dask_local: int | None,
               config) -> Iterator[tuple[Task, dict]]:
-    from distributed import Client, LocalCluster, as_completed
+    from distributed import Client, as_completed
 
     cluster = None
     if dask_local:
-        import dask
-
-        # workers of our own cluster: no statistical profiler sampling the compute thread
-        # every 10 ms, and a calmer event loop (both compete for the GIL with the split)
-        with dask.config.set({"distributed.worker.profile.enabled": False,
-                              "distributed.admin.tick.interval": "1s",
-                              "distributed.admin.system-monitor.interval": "5s"}):
-            cluster = LocalCluster(n_workers=dask_local, threads_per_worker=1, processes=True,
-                                   dashboard_address=None, silence_logs=50)
+        cluster = _local_cluster(dask_local)
         client = Client(cluster)
     else:
         try:
