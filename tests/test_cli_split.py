@@ -275,3 +275,30 @@ def test_estimate_leaves_out_the_first_image():
     tally.finished({"input": "c", "status": "ok", "seconds": 3.0})
     # median of (1, 3) = 2 s per image, 7 images left, 2 workers
     assert seen[-1].eta == 2.0 * 7 / 2
+
+
+def test_a_new_config_option_is_one_table_entry(inputs, tmp_path, monkeypatch):
+    """One ConfigOption added to CONFIG_OPTIONS is parsed and reaches the run's config."""
+    from segcut_cli import options
+
+    extra = options.ConfigOption(("--compactness",), "compactness", options.positive_float,
+                                 "C", "superpixel compactness")
+    monkeypatch.setattr(options, "CONFIG_OPTIONS", options.CONFIG_OPTIONS + (extra,))
+    out = tmp_path / "out"
+    assert main(["split", str(inputs / "one.png"), "-o", str(out), "-j", "1", "-q",
+                 "--compactness", "7.5"]) == 0
+    assert load_config(out / "run.toml").compactness == 7.5
+    assert main(["split", str(inputs / "one.png"), "-o", str(out), "--compactness", "-1"]) == 2
+
+
+def test_every_config_option_maps_to_a_config_field():
+    from dataclasses import fields
+
+    from segcut_cli.main import build_parser
+    from segcut_cli.options import CONFIG_OPTIONS
+
+    names = {f.name for f in fields(SplitConfig)}
+    help_text = build_parser()._subparsers._group_actions[0].choices["split"].format_help()
+    for option in CONFIG_OPTIONS:
+        assert option.field in names, option.flags
+        assert option.flags[0] in help_text

@@ -18,7 +18,7 @@ import platform
 import re
 from pathlib import Path
 
-from ..columns import OUTPUT_COLUMNS, SUMMARY_COLUMNS, column_value
+from .. import columns
 from ..errors import ConfigError, SegcutError
 from ..files import append_json_line, read_json_lines, write_bytes_atomic, write_json_lines
 
@@ -118,8 +118,9 @@ def _csv_value(value) -> str:
 
 
 def summary_rows(records: dict) -> list[dict]:
-    """One flat row per record, sorted by input, with the columns of ``SUMMARY_COLUMNS``."""
-    return [{c.key: column_value(c, records[key]) for c in OUTPUT_COLUMNS}
+    """One flat row per record, sorted by input, keyed by the output columns
+    (:data:`segcut.columns.OUTPUT_COLUMNS`, read when called)."""
+    return [{c.key: columns.column_value(c, records[key]) for c in columns.OUTPUT_COLUMNS}
             for key in sorted(records)]
 
 
@@ -127,9 +128,10 @@ def write_summary(out_dir: Path, records: dict) -> Path:
     """Write ``summary.csv`` (atomically); return its path."""
     buffer = _stdio.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
-    writer.writerow(SUMMARY_COLUMNS)
+    keys = [c.key for c in columns.OUTPUT_COLUMNS]
+    writer.writerow(keys)
     for row in summary_rows(records):
-        writer.writerow([_csv_value(row[c]) for c in SUMMARY_COLUMNS])
+        writer.writerow([_csv_value(row[k]) for k in keys])
     path = Path(out_dir) / SUMMARY_NAME
     write_bytes_atomic(path, buffer.getvalue().encode("utf-8", errors="backslashreplace"))
     return path
