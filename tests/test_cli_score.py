@@ -132,6 +132,11 @@ def test_missing_mask_path_is_one_line_error(split_run, capsys):
     code = main(["score", str(images), str(root / "nowhere")])
     assert code == 2  # a missing input is a usage error
     assert capsys.readouterr().err == f"segcut: {root / 'nowhere'}: no such file or folder\n"
+    code = main(["score", str(images), str(root / "nowhere"), "--json"])
+    assert code == 2
+    payload = json.loads(capsys.readouterr().out)
+    assert payload == {"command": "score", "exit_code": 2,
+                       "error": f"{root / 'nowhere'}: no such file or folder"}
 
 
 def test_seeds_need_one_image(split_run, capsys):
