@@ -263,6 +263,17 @@ def test_progress_names_the_image_being_worked_on_and_refreshes():
     assert "estimating time left" in frames[0]
 
 
+def test_a_single_image_reports_its_stages(inputs, tmp_path):
+    from segcut.batch import run_batch
+
+    seen = []
+    run_batch([inputs / "one.png"], tmp_path / "out", SplitConfig(), jobs=1, report=False,
+              progress=seen.append)
+    stages = [p.stage for p in seen if p.working == "one.png" and p.stage]
+    assert stages == ["reading", "splitting", "writing"]
+    assert seen[-1].stage is None and seen[-1].done == 1
+
+
 def test_estimate_leaves_out_the_first_image():
     """The first image also compiles kernels: the estimate uses the median of the others."""
     from segcut.batch.run import _Tally

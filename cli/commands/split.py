@@ -84,7 +84,8 @@ class ProgressPrinter:
                 f"{p.failed} failed, {rate} images/s, {left}")
         if p.working is not None and p.working_since is not None:
             now = time.monotonic() if now is None else now
-            line += f"; working on {p.working} for {_clock(now - p.working_since)}"
+            doing = f" ({p.stage})" if getattr(p, "stage", None) else ""
+            line += f"; working on {p.working}{doing} for {_clock(now - p.working_since)}"
         return line
 
     def __call__(self, p) -> None:

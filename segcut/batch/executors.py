@@ -82,8 +82,16 @@ def _box_warning(config, spatial) -> str | None:
             f"clipped to {','.join(str(v) for v in inside)}")
 
 
-def process_task(task: Task) -> dict:
-    """Read, split and write one image; return its record. Never raises for bad input."""
+def _no_stage(name: str) -> None:
+    pass
+
+
+def process_task(task: Task, stage=_no_stage) -> dict:
+    """Read, split and write one image; return its record. Never raises for bad input.
+
+    ``stage`` (in-process runs only) is called with ``"reading"``, ``"splitting"`` and
+    ``"writing"`` as the work moves on.
+    """
     from ..drawing import write_overlay
     from ..io import read_image, read_seeds, write_mask
     from ..pipeline import split
@@ -101,13 +109,16 @@ def process_task(task: Task) -> dict:
                                  path=task.path) from None
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
+            stage("reading")
             image = read_image(task.path)
             seeds = None if task.seeds_path is None else read_seeds(task.seeds_path)
+            stage("splitting")
             result = split(image.array, task.config, seeds=seeds,
                            channel_axis=image.channel_axis,
                            rng=image_seed(task.base_seed, input_hash))
             out = Path(task.out_dir)
             mask_name = task.mask + (".tif" if image.is_stack else ".png")
+            stage("writing")
             write_mask(result.mask, out / mask_name)
             write_overlay(image.array, result.mask, out / task.overlay,
                           channel_axis=image.channel_axis)
@@ -185,9 +196,10 @@ def _warm_up(config=None) -> None:
 _THREAD_LIMITS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
 
-def run_serial(tasks: Iterator[Task]) -> Iterator[tuple[Task, dict]]:
+def run_serial(tasks: Iterator[Task], stage=_no_stage) -> Iterator[tuple[Task, dict]]:
+    """Run the tasks one by one in this process, telling ``stage`` where each one is."""
     for task in tasks:
-        yield task, process_task(task)
+        yield task, process_task(task, stage)
 
 
 def run_pool(tasks: Iterator[Task], *, jobs: int, config) -> Iterator[tuple[Task, dict]]:

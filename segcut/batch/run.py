@@ -149,6 +149,9 @@ class BatchProgress:
         ``input`` of the oldest image handed to a worker and not finished yet.
     working_since : float or None
         ``time.monotonic()`` when ``working`` was handed out.
+    stage : str or None
+        What is being done to ``working`` (``"reading"``, ``"splitting"``, ``"writing"``),
+        when the run is in this process (one worker, or one image); else None.
     """
 
     total: int
@@ -161,6 +164,7 @@ class BatchProgress:
     last: str | None = None
     working: str | None = None
     working_since: float | None = None
+    stage: str | None = None
 
 
 @dataclass(frozen=True)
@@ -309,6 +313,7 @@ class _Tally:
         self.failures: list = []
         self.worker_seconds: list = []
         self.in_flight: dict = {}  # input -> monotonic time it was handed out
+        self.current_stage: str | None = None
         self.progress = progress
         self.t0 = time.perf_counter()
 
@@ -318,10 +323,16 @@ class _Tally:
 
     def started(self, name: str) -> None:
         self.in_flight[name] = time.monotonic()
+        self.current_stage = None
+        self.report(None)
+
+    def stage(self, name: str) -> None:
+        self.current_stage = name
         self.report(None)
 
     def finished(self, record: dict) -> None:
         self.in_flight.pop(record["input"], None)
+        self.current_stage = None
         if record["status"] == "ok":
             self.done += 1
         else:
@@ -344,14 +355,14 @@ class _Tally:
         self.progress(BatchProgress(
             total=self.total, done=self.done, failed=self.failed, resumed=self.resumed,
             elapsed=elapsed, rate=rate, eta=eta, last=last, working=working,
-            working_since=self.in_flight.get(working)))
+            working_since=self.in_flight.get(working), stage=self.current_stage))
 
 
-def _executor(tasks, *, jobs, n_todo, scheduler, dask_local, config):
+def _executor(tasks, *, jobs, n_todo, scheduler, dask_local, config, stage):
     if scheduler is not None or dask_local is not None:
         return run_dask(tasks, scheduler=scheduler, dask_local=dask_local, config=config)
     if jobs == 1 or n_todo <= 1:
-        return run_serial(tasks)
+        return run_serial(tasks, stage)
     return run_pool(tasks, jobs=min(jobs, n_todo), config=config)
 
 
@@ -459,7 +470,7 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
 
     tally.report(None)
     results = _executor(tasks(), jobs=jobs, n_todo=len(todo), scheduler=scheduler,
-                        dask_local=dask_local, config=config)
+                        dask_local=dask_local, config=config, stage=tally.stage)
     interrupted = False
     try:
         for task, record in results:
