@@ -52,7 +52,7 @@ FLAG_MEANINGS = {
                       "the object is cut off by the frame, or background was taken for it",
     "hypotheses disagree": "the kept split and the best competing start hypothesis differ by "
                            "more than {max_disagreement:.0%} (1 - IoU): the picture allows two "
-                           "readings",
+                           "readings; check that the kept one is the object",
     "refinement changed much": "the pixel-level boundary refinement moved more than "
                                "{max_refine_change:.0%} of the pixels: the superpixels fitted "
                                "the object poorly",
