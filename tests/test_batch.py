@@ -25,7 +25,7 @@ from hypothesis import strategies as st
 from PIL import Image
 
 from segcut.batch import (SUMMARY_COLUMNS, find_inputs, hash_file, image_seed, load_records,
-                          run_batch)
+                          run_batch, write_report)
 from segcut.config import SplitConfig
 from segcut.errors import ConfigError, InputError
 
@@ -336,6 +336,8 @@ def test_seed_folder_is_matched_by_relative_path_then_stem(scenes, serial_run, t
     Image.fromarray(canvas).save(marks / "d.png")
     again = run_batch([folder], out, SplitConfig(), seeds=marks, jobs=1, report=False)
     assert again.resumed == 3
+    page = write_report(out).read_text(encoding="utf-8")  # the report says seeds were used
+    assert "<dt>seeds</dt><dd>a marker image for 3 of 4</dd>" in page
 
 
 def test_bad_files_become_records_and_the_run_goes_on(tmp_path):

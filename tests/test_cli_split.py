@@ -212,6 +212,7 @@ def test_report_command(inputs, tmp_path, capsys):
     page = (out / "report.html").read_text(encoding="utf-8")
     assert page.count("<tr data-input=") == 2
     assert 'href="run.toml"' in page and "<dt>prior</dt><dd>none</dd>" in page
+    assert "<dt>seeds</dt><dd>none</dd>" in page and "<dt>method</dt><dd>auto</dd>" in page
     assert main(["report", str(tmp_path)]) == 2
     assert "not a run folder" in capsys.readouterr().err
     assert main(["report", str(tmp_path / "nowhere"), "--json"]) == 2

@@ -111,8 +111,12 @@ def write_report(out_dir, *, title: str | None = None,
         if overlay and record.get("status") == "ok":
             row["thumbnail"] = _thumbnail_jpeg(out_dir / overlay, thumbnail_size)
     has_toml = (out_dir / RUN_CONFIG_NAME).is_file()
-    html = render_report(rows, title=title or out_dir.resolve().name,
-                         settings=_run_settings(out_dir) if has_toml else None,
+    settings = _run_settings(out_dir) if has_toml else None
+    if settings is not None:
+        seeded = sum(1 for r in records.values() if r.get("seeds_hash"))
+        settings["seeds"] = (f"a marker image for {seeded} of {len(records)}" if seeded
+                             else "none")
+    html = render_report(rows, title=title or out_dir.resolve().name, settings=settings,
                          config_link=RUN_CONFIG_NAME if has_toml else None)
     path = out_dir / REPORT_NAME
     write_bytes_atomic(path, html.encode("utf-8", errors="xmlcharrefreplace"))
