@@ -103,7 +103,7 @@ def _run_score(args) -> int:
     from .commands.score import score
 
     return score(args.image, args.masks, config_path=args.config, seeds_path=args.seeds,
-                 overrides=config_overrides(args, warn=_warn), as_json=args.json,
+                 overrides=config_overrides(args), as_json=args.json,
                  csv_path=args.csv_path)
 
 
@@ -200,7 +200,7 @@ def _run_split(args) -> int:
     from .commands.split import split
 
     return split(args.paths, out=args.out, include=args.include, exclude=args.exclude,
-                 config_path=args.config, overrides=config_overrides(args, warn=_warn),
+                 config_path=args.config, overrides=config_overrides(args),
                  seeds=args.seeds, jobs=args.jobs, force=args.force, quiet=args.quiet,
                  as_json=args.json, scheduler=args.scheduler, dask_local=args.dask_local,
                  report=not args.no_report)
@@ -248,10 +248,6 @@ def _log_unexpected(exc: BaseException) -> str:
     with os.fdopen(fd, "w", encoding="utf-8") as fh:
         traceback.print_exception(type(exc), exc, exc.__traceback__, file=fh)
     return path
-
-
-def _warn(line: str) -> None:
-    sys.stderr.write(f"segcut: warning: {line}\n")
 
 
 def _command_of(argv: list) -> str | None:

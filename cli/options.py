@@ -3,7 +3,8 @@
 :data:`CONFIG_OPTIONS` maps each flag to a :class:`segcut.config.SplitConfig` field.
 :func:`add_config_options` adds the flags to a parser from it and
 :func:`config_overrides` collects the given ones into ``{field: value}`` from the
-same table, so a new config option is one new entry here.
+same table, so a new config option is one new entry here. :func:`guard_extremes`
+refuses or lowers settings that cannot work, from options and config files alike.
 """
 
 from __future__ import annotations
@@ -56,8 +57,8 @@ def positive_int(text: str) -> int:
 
 
 def superpixel_count(text: str) -> int:
-    """A superpixel count: refused below :data:`MIN_SUPERPIXELS` (the check of the upper
-    limit, with its warning, is in :func:`config_overrides`)."""
+    """A superpixel count: refused below :data:`MIN_SUPERPIXELS` (the upper limit, with its
+    warning, is applied by :func:`guard_extremes`)."""
     value = number(text, int, minimum=1)
     if value < MIN_SUPERPIXELS:
         raise argparse.ArgumentTypeError(
@@ -173,23 +174,33 @@ def add_config_options(parser, *, skip=()) -> None:
                             metavar=option.metavar, help=option.help_text())
 
 
-def config_overrides(args, *, warn=None) -> dict:
-    """``{config field: value}`` of the config options given on the command line.
-
-    ``warn`` (a function taking one line) is told when a value is lowered.
-    """
+def config_overrides(args) -> dict:
+    """``{config field: value}`` of the config options given on the command line."""
     changes = {}
     for option in CONFIG_OPTIONS:
         value = getattr(args, option.dest, None)
         if value is not None:
             changes[option.field] = value
-    n = changes.get("n_superpixels")
-    if n is not None and n > MAX_SUPERPIXELS:
-        changes["n_superpixels"] = MAX_SUPERPIXELS
-        if warn is not None:
-            warn(f"--superpixels {n} lowered to {MAX_SUPERPIXELS} (the time of a split grows "
-                 "with the count; the default never uses more than 6000)")
     return changes
+
+
+def guard_extremes(config, *, warn=None):
+    """The config with settings that cannot work refused and ruinous ones lowered.
+
+    A superpixel count below :data:`MIN_SUPERPIXELS` raises ``ValueError``; one above
+    :data:`MAX_SUPERPIXELS` is lowered to it and ``warn`` (a function taking one line)
+    is told. Applies to config files and options alike.
+    """
+    n = config.n_superpixels
+    if n is not None and n < MIN_SUPERPIXELS:
+        raise ValueError(f"n_superpixels (--superpixels) must be at least {MIN_SUPERPIXELS} "
+                         f"(fewer cannot outline an object); got {n}")
+    if n is not None and n > MAX_SUPERPIXELS:
+        if warn is not None:
+            warn(f"n_superpixels (--superpixels) {n} lowered to {MAX_SUPERPIXELS} (the time of "
+                 "a split grows with the count; the default never uses more than 6000)")
+        config = config.replace(n_superpixels=MAX_SUPERPIXELS)
+    return config
 
 
 def join_negative_values(argv: list) -> list:

@@ -180,11 +180,17 @@ def test_extreme_settings_are_clamped_or_warned(inputs, tmp_path, capsys):
                  "--superpixels", "100000", "--box", "10,10,500,60"])
     assert code == 0
     err = capsys.readouterr().err
-    assert "--superpixels 100000 lowered to 20000" in err
+    assert "(--superpixels) 100000 lowered to 20000" in err
     assert load_config(out / "run.toml").n_superpixels == 20000
     record = load_records(out)["one.png"]
     assert any("reaches outside the 96 x 96 image; clipped to 10,10,96,60" in w
                for w in record["warnings"])
+    # a config file gets the same guards as the options
+    tiny = tmp_path / "tiny.toml"
+    tiny.write_text(SplitConfig(n_superpixels=2).to_toml())
+    assert main(["split", str(inputs / "one.png"), "-o", str(tmp_path / "o2"), "-q",
+                 "--config", str(tiny)]) == 2
+    assert "must be at least 8" in capsys.readouterr().err
 
 
 def test_missing_input_empty_folder_and_foreign_run_folder(inputs, tmp_path, capsys):

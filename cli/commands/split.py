@@ -27,6 +27,8 @@ def build_config(*, config_path=None, overrides=None):
         A TOML config file.
     overrides : dict, optional
         ``{config field: value}`` (see :func:`segcut_cli.options.config_overrides`).
+        Settings that cannot work are refused and ruinous ones lowered with a warning
+        on stderr (:func:`segcut_cli.options.guard_extremes`).
 
     Raises
     ------
@@ -37,11 +39,17 @@ def build_config(*, config_path=None, overrides=None):
     """
     from segcut.config import SplitConfig, load_config
 
+    from ..options import guard_extremes
+
     config = load_config(config_path) if config_path is not None else SplitConfig()
     try:
-        return config.replace(**dict(overrides or {}))
+        return guard_extremes(config.replace(**dict(overrides or {})), warn=_warn)
     except (TypeError, ValueError) as err:
         raise UsageError(str(err)) from None
+
+
+def _warn(line: str) -> None:
+    sys.stderr.write(f"segcut: warning: {line}\n")
 
 
 def _clock(seconds) -> str:
