@@ -150,7 +150,8 @@ CONFIG_OPTIONS = (
     ConfigOption(("--prior",), "prior", prior_names, "PRIOR", _prior_help),
     ConfigOption(("--box",), "box", box, "X0,Y0,X1,Y1",
                  "a box known to hold the foreground, in pixels (x is the column, 0,0 the top "
-                 "left corner; a box reaching outside an image is clipped, with a warning)"),
+                 "left corner; a box reaching outside an image is clipped, and split notes it "
+                 "in that image's record)"),
     ConfigOption(("--superpixels",), "n_superpixels", superpixel_count, "N",
                  f"number of superpixels, {MIN_SUPERPIXELS} to {MAX_SUPERPIXELS} (default: "
                  "chosen from the image size)"),
