@@ -508,6 +508,23 @@ def test_ctrl_c_exits_130_and_leaves_valid_outputs(tmp_path):
             im.load()
 
 
+def test_ctrl_c_waits_until_a_record_and_its_count_agree():
+    """SIGINT inside the held block arrives after it: no record without its count."""
+    from segcut.batch.run import _interrupts_held
+
+    steps = []
+    with pytest.raises(KeyboardInterrupt):
+        with _interrupts_held():
+            os.kill(os.getpid(), signal.SIGINT)
+            time.sleep(0.05)  # Python runs handlers between bytecodes: it would raise here
+            steps.append("record written")
+            steps.append("count updated")
+    assert steps == ["record written", "count updated"]
+    with _interrupts_held():  # no signal: nothing raised, the usual handler is back
+        pass
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
+
+
 def test_process_pool_and_dask_local_cluster_write_identical_bytes(scenes, serial_run, tmp_path):
     folder, _ = scenes
     reference, _ = serial_run

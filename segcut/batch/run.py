@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import os
 import statistics
 import time
@@ -362,6 +363,31 @@ class _Tally:
             working_since=self.in_flight.get(working), stage=self.current_stage))
 
 
+@contextlib.contextmanager
+def _interrupts_held():
+    """Hold Ctrl-C (SIGINT) back for the duration of the block; it is raised right after.
+
+    Only in the main thread (where Python runs signal handlers); elsewhere the block
+    runs as is.
+    """
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught = []
+    previous = signal.signal(signal.SIGINT, lambda number, frame: caught.append(number))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    if caught and previous is not signal.SIG_IGN:
+        if callable(previous):
+            previous(signal.SIGINT, None)  # the default handler raises KeyboardInterrupt
+        raise KeyboardInterrupt
+
+
 def _executor(tasks, *, jobs, n_todo, scheduler, dask_local, config, stage):
     if scheduler is not None or dask_local is not None:
         return run_dask(tasks, scheduler=scheduler, dask_local=dask_local, config=config)
@@ -480,8 +506,9 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
         for task, record in results:
             if seed_folder and task.seeds_path is None:
                 record.setdefault("warnings", []).append(_MISSING_SEED_WARNING)
-            append_record(out_dir, record)
-            tally.finished(record)
+            with _interrupts_held():  # the record and the counts change together
+                append_record(out_dir, record)
+                tally.finished(record)
     except KeyboardInterrupt:
         interrupted = True
     finally:
