@@ -148,8 +148,9 @@ def find_inputs(paths: Iterable, *, include: Sequence[str] = (), exclude: Sequen
       given directly). When several given paths hold the same name (two folders
       each with ``a.png``), each such input is named ``<folder name>/<name>``
       (``day1/a.png``, ``day2/a.png``; for a file given directly, the name of the
-      folder it is in), with ``~2``, ``~3``... added in the order of the paths if
-      that still clashes;
+      folder it is in); given folders that share a name too are told apart as
+      ``in~1``, ``in~2``... in the order given (and any name still taken gets
+      ``~2``, ``~3``...);
     - its outputs are named by its name without the suffix, unless another input
       has the same name up to the suffix (``a.png`` and ``a.jpg``): then both keep
       their suffix (``masks/a.png.png``, ``masks/a.jpg.png``).
