@@ -72,11 +72,10 @@ import stat
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterator
 
 import numpy as np
 
-from .errors import InputError, SegcutError
+from .errors import InputError
 from .files import (_cannot_write, append_json_line, append_line, atomic_path,  # noqa: F401
                     read_json_lines, write_bytes_atomic, write_text_atomic)
 
