@@ -43,6 +43,9 @@ SECTIONS = {
     "model_strength": "appearance",
     "start_clusters": "appearance",
     "model_starts": "appearance",
+    "refine": "refine",
+    "refine_band": "refine",
+    "refine_smoothness": "refine",
     "method": "solver",
     "time_limit": "solver",
     "max_moves": "solver",
@@ -114,6 +117,15 @@ class SplitConfig:
         the image frame most (share of the frame pixels over share of the area) is
         kept; 1 runs from the first start only (see :func:`segcut.pipeline.split`,
         Notes).
+    refine : bool
+        Refine the boundary at pixel level: a second max-cut on the pixels near the
+        boundary of the superpixel split (see :mod:`segcut.refine`).
+    refine_band : int or None
+        Half-width in pixels of that band; None chooses half the mean superpixel
+        side (at least 2).
+    refine_smoothness : float
+        Weight of a neighbour edge between equal pixels in the refinement graph,
+        against the colour-model evidence of one pixel.
     method : str
         Max-cut method; ``"auto"`` takes tabu search warm-started from the SDP
         relaxation when available, otherwise the best registered method.
@@ -157,6 +169,9 @@ class SplitConfig:
     model_strength: float = 1.0
     start_clusters: int = 4
     model_starts: int = 2
+    refine: bool = True
+    refine_band: int | None = None
+    refine_smoothness: float = 8.0
     method: str = "auto"
     time_limit: float | None = None
     max_moves: int | None = None
@@ -344,11 +359,13 @@ def _validate(cfg: SplitConfig) -> None:
     number("model_strength", lo=0)
     number("start_clusters", lo=0, integer=True)
     number("model_starts", lo=1, integer=True)
+    number("refine_band", lo=0, integer=True, allow_none=True)
+    number("refine_smoothness", lo=0)
     number("time_limit", lo=0, lo_open=True, allow_none=True)
     number("max_moves", lo=1, integer=True, allow_none=True)
     number("min_region_size", lo=0, integer=True)
     number("seed", lo=0, integer=True)
-    for name in ("colour_model", "fill_holes"):
+    for name in ("colour_model", "fill_holes", "refine"):
         if not isinstance(getattr(cfg, name), bool):
             raise ValueError(f"{name} must be true or false; got {getattr(cfg, name)!r}")
     for name in ("affinity", "method"):

@@ -1,34 +1,50 @@
-"""The path of one image: superpixels, region graph, priors and colour models, max-cut, mask.
+"""The path of one image, as a short composition of named stages.
 
 :func:`split` is the main job of segcut: numpy image in, boolean mask out, with the
-cut value, its certified upper bound and the gap. :func:`build_image_graph` gives
-the signed graph that :func:`split` solves, and :func:`mask_to_sides` projects any
-mask onto it, so any mask can be scored on the same graph:
+cut value, its certified upper bound and the gap. The stages:
+
+1. prepare: checks, robust intensity normalisation (:mod:`segcut.prepare`) and the
+   canonical orientation (:mod:`segcut.orientation`);
+2. superpixels and region features (:mod:`segcut.superpixels`, :mod:`segcut.regions`);
+3. signed neighbour edges (:mod:`segcut.affinity`);
+4. priors, box and seeds (:mod:`segcut.priors`);
+5. appearance models and start hypotheses (:mod:`segcut.appearance`);
+6. the max-cut of the superpixel graph (:mod:`segcut.maxcut`);
+7. pixel-level boundary refinement (:mod:`segcut.refine`) and clean-up.
+
+:func:`build_image_graph` gives the signed graph that :func:`split` solves, and
+:func:`mask_to_sides` projects any mask onto it, so any mask can be scored on the
+same graph:
 
 >>> image = np.zeros((40, 40)); image[10:30, 12:28] = 1.0
 >>> result = split(image, rng=0)
 >>> result.mask[20, 20], result.mask[2, 2]
 (np.True_, np.False_)
 >>> sides, agreement = mask_to_sides(result.image_graph, result.mask)
->>> cut_value(result.image_graph.graph, sides) == result.value, agreement
-(True, 1.0)
+>>> cut_value(result.image_graph.graph, sides) == result.value
+True
 """
 
 from __future__ import annotations
 
 import time
-import warnings as _warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from .affinity import edge_weights, knn_edges
+from .appearance import ModelProblem, border_rule, choose_end_point, local_best, \
+    run_model_rounds, start_hypotheses
 from .config import SplitConfig
-from .errors import SegcutWarning
-from .graph import SignedGraph, cut_value, graph_from_edges
+from .graph import cut_value, graph_from_edges
+from .image_graph import ImageGraph, PixelContext, frame_pixels, mask_to_sides, vertex_start
 from .maxcut import available_methods, relative_gap, solve_maxcut
-from .maxcut.local import descend
-from .priors import SEED_BACKGROUND, SEED_FOREGROUND, colour_evidence, prior_map, seeded_regions
+from .orientation import CANONICAL_TRANSFORMS, _canonical_box, apply_transform, \
+    canonical_transform
+from .prepare import image_features, prepare_image
+from .priors import SEED_BACKGROUND, SEED_FOREGROUND, box_map, get_prior, prior_map, \
+    seeded_regions
+from .refine import refine_boundary
 from .regions import describe_regions, region_adjacency, word_histograms
 from .superpixels import oversegment
 
@@ -41,76 +57,6 @@ ORIENTATIONS = {
     "border_rule": "no prior: the side with fewer pixels on the image frame is foreground",
     "no_contrast": "the image has no contrast: the mask is empty",
 }
-
-
-@dataclass(frozen=True, eq=False)
-class ImageGraph:
-    """The signed graph of one image, and how its vertices map to pixels.
-
-    Attributes
-    ----------
-    labels : (M, N) or (P, M, N) int64 ndarray
-        Region (superpixel) of every pixel, consecutive from 0, in the caller's
-        orientation (the regions were made in the canonical one).
-    graph : SignedGraph
-        Vertices are the free regions, then the terminal (when there is one).
-    terminal : int or None
-        Index of the terminal vertex; its side is the foreground.
-    region_vertex : (n_regions,) int64 ndarray
-        Vertex of each region; hard-seeded regions map to the terminal.
-    merged : (n_regions,) int8 ndarray
-        0 for a free region, +1 for a region merged into the terminal as foreground,
-        -1 for one merged as background (its spin is minus the terminal's).
-    offset : float
-        Constant dropped by the merging: the cut value of a split on the unmerged
-        graph is ``cut_value(graph, sides) + offset``.
-    orientation : str
-        What decides the foreground side (see :data:`ORIENTATIONS`).
-    threshold : float
-        Distance threshold of the affinity model (where weights change sign).
-    start : (n_vertices,) int8 ndarray
-        The split reached by the colour-model rounds (a good solver start).
-    warnings : list of str
-    seconds : dict
-        Seconds per stage spent building the graph.
-    canonical_transform : str
-        The flip or turn (a key of :data:`CANONICAL_TRANSFORMS`) that took the image
-        to the orientation it was processed in (see :func:`split`, Notes).
-    """
-
-    labels: np.ndarray
-    graph: SignedGraph
-    terminal: int | None
-    region_vertex: np.ndarray
-    merged: np.ndarray
-    offset: float
-    orientation: str
-    threshold: float
-    start: np.ndarray
-    warnings: list = field(default_factory=list)
-    seconds: dict = field(default_factory=dict)
-    canonical_transform: str = "identity"
-
-    @property
-    def n_regions(self) -> int:
-        return int(self.region_vertex.shape[0])
-
-    def region_foreground(self, sides) -> np.ndarray:
-        """Foreground flag of every region for vertex ``sides`` (terminal side = foreground)."""
-        sides = np.asarray(sides)
-        if self.terminal is None:
-            return sides[self.region_vertex] == 1
-        spin = sides[self.region_vertex] * sides[self.terminal]
-        spin = np.where(self.merged == -1, -spin, spin)
-        return spin == 1
-
-    def paint(self, sides) -> np.ndarray:
-        """The pixel mask of vertex ``sides``."""
-        return self.region_foreground(sides)[self.labels]
-
-    def __repr__(self) -> str:
-        return (f"ImageGraph(n_regions={self.n_regions}, graph={self.graph!r}, "
-                f"terminal={self.terminal}, orientation={self.orientation!r})")
 
 
 @dataclass(frozen=True, eq=False)
@@ -148,6 +94,23 @@ class SplitResult:
     canonical_transform : str
         The flip or turn that took the image to the orientation it was processed
         in (a key of :data:`CANONICAL_TRANSFORMS`; see :func:`split`, Notes).
+    hypothesis : str
+        The start hypothesis whose colour models built the graph (a key of
+        :data:`segcut.appearance.HYPOTHESES`; ``"prior"`` with priors or seeds).
+    choice_rule : str
+        How it was chosen among several (a key of :data:`segcut.appearance.CHOICE_RULES`).
+    hypothesis_disagreement : float
+        1 - IoU between the kept end point and the closest other hypothesis's end
+        point (0 when one hypothesis ran): large values mean the image can be read
+        in more than one way.
+    refine_changed_fraction : float
+        Share of the pixels whose side the pixel refinement changed.
+    graphs : list of dict
+        Every graph solved, in order: ``name`` (``"superpixels"``, ``"refine"``),
+        ``n_vertices``, ``value``, ``upper_bound`` and ``gap`` of that graph.
+        ``value``, ``upper_bound`` and ``gap`` above are those of the superpixel
+        graph (the final mask projected onto it); the refinement graph's certify
+        the pixel split inside its band.
     """
 
     mask: np.ndarray
@@ -165,6 +128,11 @@ class SplitResult:
     seed: int | None = None
     image_graph: ImageGraph | None = field(default=None, repr=False)
     canonical_transform: str = "identity"
+    hypothesis: str = "prior"
+    choice_rule: str = "only"
+    hypothesis_disagreement: float = 0.0
+    refine_changed_fraction: float = 0.0
+    graphs: list = field(default_factory=list)
 
     def to_record(self) -> dict:
         """The JSON-serialisable statistics of this split (no arrays).
@@ -173,7 +141,7 @@ class SplitResult:
         --------
         >>> r = split(np.eye(8), rng=0)
         >>> sorted(r.to_record())[:4]
-        ['canonical_transform', 'cleanup', 'foreground_fraction', 'gap']
+        ['canonical_transform', 'choice_rule', 'cleanup', 'foreground_fraction']
         """
         return {
             "value": float(self.value),
@@ -188,6 +156,11 @@ class SplitResult:
             "seconds": {k: round(float(v), 6) for k, v in self.seconds.items()},
             "warnings": list(self.warnings),
             "cleanup": dict(self.cleanup),
+            "hypothesis": self.hypothesis,
+            "choice_rule": self.choice_rule,
+            "hypothesis_disagreement": round(float(self.hypothesis_disagreement), 6),
+            "refine_changed_fraction": round(float(self.refine_changed_fraction), 6),
+            "graphs": [dict(g) for g in self.graphs],
         }
 
     def __repr__(self) -> str:
@@ -196,238 +169,6 @@ class SplitResult:
         return (f"SplitResult(shape={self.mask.shape}, foreground_fraction="
                 f"{self.foreground_fraction:.3g}, value={self.value:.6g}, upper_bound={bound}, "
                 f"gap={gap}, n_superpixels={self.n_superpixels}, orientation={self.orientation!r})")
-
-
-# -- image preparation -----------------------------------------------------------------
-
-def _prepare(image, channel_axis):
-    """Image -> (values in [0, 1], warnings, has_contrast).
-
-    Only exact operations that act on each pixel alone (indexing, IEEE arithmetic,
-    minimum and maximum, a fill value that does not depend on the pixel order), so
-    a flipped or rotated image gives the correspondingly moved values, bit for bit.
-    """
-    arr = np.asarray(image)
-    if arr.dtype == object or not (np.issubdtype(arr.dtype, np.number) or arr.dtype == bool):
-        raise TypeError(f"image must be a numeric array; got dtype {arr.dtype}")
-    if channel_axis is not None and arr.ndim >= 3:
-        arr = np.moveaxis(arr, channel_axis, -1)
-        if arr.shape[-1] > 4:
-            raise ValueError(
-                f"image has {arr.shape[-1]} channels along channel_axis={channel_axis}; for a "
-                "3-D stack without channels pass channel_axis=None")
-    else:
-        arr = arr[..., None]
-    if arr.ndim - 1 not in (2, 3):
-        raise ValueError(f"image must be 2-D or a 3-D stack (with optional channels); got shape "
-                         f"{np.asarray(image).shape} with channel_axis={channel_axis}")
-    if min(arr.shape[:-1]) < 2:
-        raise ValueError(f"image is too small to split: spatial shape {arr.shape[:-1]}")
-    warnings = []
-    channels = arr.shape[-1]
-    if channels in (2, 4):  # drop alpha
-        arr = arr[..., :channels - 1]
-    if arr.dtype == bool:
-        x = arr.astype(np.float64)
-    elif np.issubdtype(arr.dtype, np.unsignedinteger):
-        x = arr.astype(np.float64) / float(np.iinfo(arr.dtype).max)
-    elif np.issubdtype(arr.dtype, np.integer):
-        info = np.iinfo(arr.dtype)
-        x = (arr.astype(np.float64) - info.min) / float(info.max - info.min)
-    else:
-        x = arr.astype(np.float64)
-        finite = np.isfinite(x)
-        if not finite.any():
-            raise ValueError("image has no finite values (all NaN or infinite)")
-        if not finite.all():
-            n_bad = int(np.count_nonzero(~finite))
-            # summed in sorted order: the same fill for any order of the pixels
-            fill = float(np.sum(np.sort(x[finite]))) / float(np.count_nonzero(finite))
-            x = np.where(finite, x, fill)
-            warnings.append(f"{n_bad} non-finite value(s) replaced by the image mean")
-        lo, hi = float(x.min()), float(x.max())
-        if lo < 0.0 or hi > 1.0:
-            x = (x - lo) / (hi - lo) if hi > lo else np.zeros_like(x)
-    has_contrast = bool(np.ptp(x.reshape(-1, x.shape[-1]), axis=0).max() > 0)
-    if x.shape[-1] != 3:
-        x = x[..., :1]
-    return x, warnings, has_contrast
-
-
-def _features(x):
-    """Values in [0, 1] -> features: CIELAB for colour, 100 * gray otherwise."""
-    if x.shape[-1] == 3:
-        from skimage.color import rgb2lab
-
-        feats = rgb2lab(np.clip(x, 0.0, 1.0), channel_axis=-1)
-    else:
-        feats = 100.0 * x
-    return np.ascontiguousarray(feats, dtype=np.float64)
-
-
-# -- canonical orientation -------------------------------------------------------------
-
-#: The eight flips and quarter turns of the image plane, in tie-break order. Entry
-#: ``(flip, k)`` maps an array ``a`` to ``np.rot90(np.flip(a, axis=col) if flip else a,
-#: k, axes=(row, col))`` (numpy's ``rot90`` turns counter-clockwise).
-CANONICAL_TRANSFORMS = {
-    "identity": (False, 0),
-    "rot90": (False, 1),
-    "rot180": (False, 2),
-    "rot270": (False, 3),
-    "flip_columns": (True, 0),
-    "transpose": (True, 1),
-    "flip_rows": (True, 2),
-    "anti_transpose": (True, 3),
-}
-
-# Blocks per side of the content signature (odd), and the levels values are rounded to.
-_KEY_BLOCKS = 9
-_KEY_LEVELS = 65535
-
-
-def apply_transform(array, name: str, *, axes=(-2, -1), inverse: bool = False) -> np.ndarray:
-    """Apply one of :data:`CANONICAL_TRANSFORMS` (or its inverse) to the plane ``axes``.
-
-    Parameters
-    ----------
-    array : ndarray
-    name : str
-        A key of :data:`CANONICAL_TRANSFORMS`.
-    axes : (int, int)
-        The row and column axes of the image plane.
-    inverse : bool
-        Apply the inverse transform instead.
-
-    Returns
-    -------
-    ndarray
-        A view of ``array`` (not a copy).
-
-    Examples
-    --------
-    >>> a = np.arange(6).reshape(2, 3)
-    >>> apply_transform(a, "transpose")
-    array([[0, 3],
-           [1, 4],
-           [2, 5]])
-    >>> np.array_equal(apply_transform(apply_transform(a, "rot90"), "rot90", inverse=True), a)
-    True
-    """
-    if name not in CANONICAL_TRANSFORMS:
-        raise ValueError(f"unknown transform {name!r}; choose one of "
-                         f"{', '.join(CANONICAL_TRANSFORMS)}")
-    flip, k = CANONICAL_TRANSFORMS[name]
-    row, col = axes
-    if inverse:
-        out = np.rot90(array, -k, axes=(row, col))
-        return np.flip(out, axis=col) if flip else out
-    out = np.flip(array, axis=col) if flip else array
-    return np.rot90(out, k, axes=(row, col))
-
-
-def _symmetric_edges(length, blocks):
-    """Block edges along one side, mirror-symmetric: ``edge[b - i] = length - edge[i]``.
-
-    ``blocks`` is odd, so the middle block is centred for odd and even lengths.
-    """
-    half = [(i * length) // blocks for i in range((blocks + 1) // 2)]
-    return np.array(half + [length - e for e in reversed(half)], dtype=np.int64)
-
-
-def _block_sums(values):
-    """Exact integer sums of rounded values over a mirror-symmetric grid of blocks.
-
-    ``values``: (M, N, C) or (P, M, N, C) in [0, 1]; returns (blocks, blocks, C) int64.
-    Integer sums have no round-off, and the grid is mirror-symmetric, so the sums of
-    a flipped or rotated image are the correspondingly moved sums, exactly.
-    """
-    q = (values * float(_KEY_LEVELS) + 0.5).astype(np.int64)  # round half up (values >= 0)
-    if q.ndim == 4:
-        q = q.sum(axis=0)
-    for axis in (0, 1):
-        edges = _symmetric_edges(q.shape[axis], _KEY_BLOCKS)
-        starts = np.minimum(edges[:-1], q.shape[axis] - 1)
-        q = np.add.reduceat(q, starts, axis=axis)
-        empty = edges[:-1] == edges[1:]
-        if empty.any():  # reduceat gives the start element for an empty block
-            index = [slice(None)] * q.ndim
-            index[axis] = empty
-            q[tuple(index)] = 0
-    return q
-
-
-def _lexicographic_less(a, b):
-    """True when array ``a`` comes before ``b`` in C order (first differing element)."""
-    a, b = a.ravel(), b.ravel()
-    differ = np.flatnonzero(a != b)
-    return bool(differ.size) and bool(a[differ[0]] < b[differ[0]])
-
-
-def canonical_transform(values) -> str:
-    """The transform that takes ``values`` to its canonical orientation.
-
-    Parameters
-    ----------
-    values : (M, N, C) or (P, M, N, C) ndarray
-        Image values in [0, 1], channels last (stacks: flips and turns of the
-        (M, N) plane only).
-
-    Returns
-    -------
-    str
-        A key of :data:`CANONICAL_TRANSFORMS`.
-
-    Notes
-    -----
-    Each of the eight views gets the key (spatial shape of the view, then the
-    integer sums of the values rounded to 65535 levels over a 9 x 9 grid of
-    mirror-symmetric blocks, channel by channel, in C order). The view with the
-    smallest key wins. Views whose keys tie are compared pixel by pixel (C order,
-    first differing value decides); views that are equal pixel for pixel (the
-    image has that symmetry) give the same canonical image, and the first of them
-    in :data:`CANONICAL_TRANSFORMS` order is named. Every step is exact, so
-    ``canonical_transform`` of a moved image names the view that leads to the same
-    canonical image.
-
-    Examples
-    --------
-    >>> a = np.zeros((4, 6, 1)); a[0, 0] = 1.0
-    >>> name = canonical_transform(a)
-    >>> moved = apply_transform(a, "rot90", axes=(0, 1))
-    >>> c1 = apply_transform(a, name, axes=(0, 1))
-    >>> c2 = apply_transform(moved, canonical_transform(moved), axes=(0, 1))
-    >>> np.array_equal(c1, c2)
-    True
-    """
-    values = np.asarray(values)
-    axes = (values.ndim - 3, values.ndim - 2)
-    sums = _block_sums(values)
-    keys = {}
-    for name in CANONICAL_TRANSFORMS:
-        view_shape = apply_transform(values[..., :1], name, axes=axes).shape[:-1]
-        block_view = apply_transform(sums, name, axes=(0, 1))
-        keys[name] = tuple(int(v) for v in view_shape) + tuple(block_view.ravel().tolist())
-    smallest = min(keys.values())
-    best = None
-    for name in CANONICAL_TRANSFORMS:
-        if keys[name] != smallest:
-            continue
-        if best is None or _lexicographic_less(apply_transform(values, name, axes=axes),
-                                               apply_transform(values, best, axes=axes)):
-            best = name
-    return best
-
-
-def _canonical_box(box, spatial, transform):
-    """A box ``(x0, y0, x1, y1)`` of the caller's frame, in the canonical frame."""
-    from .priors import box_map
-
-    inside = box_map(tuple(spatial[-2:]), box) == 0
-    inside = apply_transform(inside, transform)
-    rows = np.flatnonzero(inside.any(axis=1))
-    cols = np.flatnonzero(inside.any(axis=0))
-    return (int(cols[0]), int(rows[0]), int(cols[-1]) + 1, int(rows[-1]) + 1)
 
 
 def _normalise_seeds(seeds, spatial_shape):
@@ -445,180 +186,34 @@ def _normalise_seeds(seeds, spatial_shape):
     return seeds
 
 
-# -- graph assembly ------------------------------------------------------------------
+# -- stage 1: prepare (checks, normalisation, canonical orientation, features) ----------
 
-def _assemble(n_regions, merged, rows, cols, weights, evidence, with_terminal):
-    """Merge seeded regions into the terminal and add the evidence edges.
+@dataclass(frozen=True, eq=False)
+class _Prepared:
+    """The image in its processing orientation, and what came with it."""
 
-    Region spin ``s_a * y_v`` (``s = -1`` for background-merged regions): an edge
-    between a region of sign ``s_a`` and one of ``s_b`` becomes an edge of weight
-    ``s_a s_b w`` between their vertices, plus the constant ``w`` when
-    ``s_a s_b = -1`` (since ``[y != -z] = 1 - [y != z]``).
+    values: np.ndarray
+    features: np.ndarray
+    seeds: np.ndarray | None
+    config: SplitConfig
+    transform: str
+    caller_spatial: tuple
+    warnings: list
+
+
+def _prepare_stage(image, config, seeds, channel_axis, seconds):
+    """Normalise the image and move it (with seeds and box) to its canonical orientation.
+
+    Returns None when the image has no contrast.
     """
-    if not with_terminal:
-        g = graph_from_edges(n_regions, rows, cols, weights)
-        return g, None, np.arange(n_regions, dtype=np.int64), 0.0
-    free = merged == 0
-    k = int(np.count_nonzero(free))
-    region_vertex = np.full(n_regions, k, dtype=np.int64)
-    region_vertex[free] = np.arange(k)
-    sign = np.where(merged == 0, 1, merged).astype(np.float64)
-    vi, vj = region_vertex[rows], region_vertex[cols]
-    prod = sign[rows] * sign[cols]
-    offset = float(np.sum(weights[prod < 0]))
-    inner = vi != vj
-    # Both ends merged: the pair is decided by the seeds; only the constant remains.
-    e_rows = [vi[inner]]
-    e_cols = [vj[inner]]
-    e_w = [(prod * weights)[inner]]
-    # Evidence u: edge (t, i) with weight -u pays -u when region i is background.
-    e_rows.append(np.full(k, k, dtype=np.int64))
-    e_cols.append(np.arange(k, dtype=np.int64))
-    e_w.append(-evidence[free])
-    offset += float(-np.sum(evidence[merged == -1]))
-    g = graph_from_edges(k + 1, np.concatenate(e_rows), np.concatenate(e_cols),
-                         np.concatenate(e_w))
-    return g, k, region_vertex, offset
-
-
-def _two_means(colours, weights):
-    """Deterministic weighted 2-means of region colours; returns group 0/1 per region."""
-    from .regions import learn_colour_words
-
-    centres = learn_colour_words(colours, weights, 2)
-    if centres.shape[0] < 2:
-        return np.zeros(colours.shape[0], dtype=np.int64)
-    d = ((colours[:, None, :] - centres[None]) ** 2).sum(-1)
-    return np.argmin(d, axis=1)
-
-
-def _frame_shy_colours(regions, n_clusters):
-    """No-prior start: the colour clusters that are rarer on the frame than in the image.
-
-    The region colours are grouped in ``n_clusters`` colour words; a cluster whose share
-    of the frame pixels is below half its share of the image area is taken as
-    foreground. None when no cluster (or every cluster) qualifies.
-    """
-    from .regions import learn_colour_words
-
-    if n_clusters < 2 or regions.frame.sum() == 0:
-        return None
-    centres = learn_colour_words(regions.mean, regions.area, n_clusters)
-    d = ((regions.mean[:, None, :] - centres[None]) ** 2).sum(-1)
-    cluster = np.argmin(d, axis=1)
-    k = centres.shape[0]
-    area = np.bincount(cluster, weights=regions.area, minlength=k) / regions.area.sum()
-    frame = np.bincount(cluster, weights=regions.frame, minlength=k) / regions.frame.sum()
-    shy = frame < 0.5 * area
-    if not shy.any() or shy.all():
-        return None
-    return shy[cluster]
-
-
-def _start_hypotheses(regions, n_clusters, n_starts, *, central=None):
-    """No-prior colour-model starts (region foreground flags), distinct, in a fixed order.
-
-    First the frame-shy clusters of ``n_clusters`` colour words (see
-    :func:`_frame_shy_colours`; a 2-means split oriented by the border rule when
-    none qualifies), then the ``central`` regions (when given), a 2-means split
-    oriented by the border rule, and frame-shy clusters of ``n_clusters + 2``,
-    ``n_clusters + 4``, ... colour words, until ``n_starts`` distinct starts with
-    both sides non-empty are found (or the candidates run out).
-    """
-    def two_means():
-        group = _two_means(regions.mean, regions.area).astype(bool)
-        return ~group if _border_rule(group, regions.frame) else group
-
-    first = _frame_shy_colours(regions, n_clusters)
-    out = [two_means() if first is None else first]
-    candidates = [lambda: central, two_means] + [
-        (lambda k=k: _frame_shy_colours(regions, k))
-        for k in range(max(n_clusters, 1) + 2, max(n_clusters, 1) + 2 * n_starts + 1, 2)]
-    for make in candidates:
-        if len(out) >= n_starts:
-            break
-        group = make()
-        if group is None or not group.any() or group.all():
-            continue
-        if any(np.array_equal(group, seen) for seen in out):
-            continue
-        out.append(group)
-    return out
-
-
-def _frame_shyness(region_fg, area, frame):
-    """How much the foreground avoids the image frame: lower is more object-like.
-
-    The foreground's share of the frame pixels divided by its share of the image
-    area (``inf`` for an empty foreground). A split whose foreground fills the
-    middle of the picture and keeps off the frame scores near 0; one that covers
-    the frame as much as the rest of the image scores 1.
-
-    Parameters
-    ----------
-    region_fg : (n,) bool ndarray
-        Foreground flag of each region.
-    area, frame : (n,) float ndarray
-        Pixels of each region, and of those on the image frame.
-
-    Returns
-    -------
-    float
-
-    Examples
-    --------
-    >>> area, frame = np.array([10.0, 30.0, 60.0]), np.array([0.0, 5.0, 15.0])
-    >>> _frame_shyness(np.array([True, True, False]), area, frame)  # (5/20) / (40/100)
-    0.625
-    """
-    region_fg = np.asarray(region_fg, dtype=bool)
-    area_share = float(area[region_fg].sum()) / float(area.sum())
-    if area_share <= 0.0:
-        return np.inf
-    total_frame = float(frame.sum())
-    frame_share = float(frame[region_fg].sum()) / total_frame if total_frame > 0 else 0.0
-    return frame_share / area_share
-
-def _border_rule(region_fg, frame):
-    """True when the foreground touches the frame more than the background: flip it."""
-    return float(frame[region_fg].sum()) > float(frame[~region_fg].sum())
-
-
-def _local_best(graph, starts, rng):
-    best, best_value = None, -np.inf
-    for start in starts:
-        sides, _ = descend(graph, start, rng=rng)
-        value = cut_value(graph, sides)
-        if best is None or value > best_value + 1e-12 * max(1.0, abs(best_value)):
-            best, best_value = sides, value
-    return best, best_value
-
-
-def _vertex_start(region_fg, region_vertex, merged, terminal, n_vertices):
-    sides = np.full(n_vertices, -1, dtype=np.int8)
-    free = merged == 0
-    sides[region_vertex[free]] = np.where(region_fg[free], 1, -1)
-    if terminal is not None:
-        sides[terminal] = 1
-    return sides
-
-
-def _build(image, config, seeds, channel_axis, rng):
-    seconds = {}
     t0 = time.perf_counter()
-    values, warnings, has_contrast = _prepare(image, channel_axis)
+    values, warnings, has_contrast = prepare_image(image, channel_axis)
     caller_spatial = values.shape[:-1]
     seeds = _normalise_seeds(seeds, caller_spatial)
     if not has_contrast:
         seconds["prepare"] = time.perf_counter() - t0
-        labels = np.zeros(caller_spatial, dtype=np.int64)
-        g = graph_from_edges(1, [], [], [])
         warnings.append("image has no contrast: the mask is empty")
-        return ImageGraph(labels=labels, graph=g, terminal=None,
-                          region_vertex=np.zeros(1, np.int64), merged=np.zeros(1, np.int8),
-                          offset=0.0, orientation="no_contrast", threshold=0.0,
-                          start=-np.ones(1, np.int8), warnings=warnings, seconds=seconds)
-    # Everything below runs in the canonical orientation; the labels go back at the end.
+        return None, warnings, caller_spatial
     t1 = time.perf_counter()
     transform = canonical_transform(values)
     plane = (values.ndim - 3, values.ndim - 2)
@@ -629,24 +224,33 @@ def _build(image, config, seeds, channel_axis, rng):
         if config.box is not None:
             config = config.replace(box=_canonical_box(config.box, caller_spatial, transform))
     seconds["canonical"] = time.perf_counter() - t1
-    feats = _features(values)
-    spatial = feats.shape[:-1]
+    features = image_features(values)
     seconds["prepare"] = time.perf_counter() - t0 - seconds["canonical"]
+    return _Prepared(values, features, seeds, config, transform, tuple(caller_spatial),
+                     warnings), warnings, caller_spatial
 
+
+# -- stage 2: superpixels and region features ----------------------------------------
+
+def _region_stage(features, config, seconds):
     t0 = time.perf_counter()
-    labels = oversegment(feats, n_superpixels=config.n_superpixels,
+    labels = oversegment(features, n_superpixels=config.n_superpixels,
                          compactness=config.compactness,
                          pixel_grid_max_pixels=config.pixel_grid_max_pixels,
                          sigma=config.sigma)
     seconds["superpixels"] = time.perf_counter() - t0
-
     t0 = time.perf_counter()
-    regions = describe_regions(labels, feats, n_colour_words=config.n_colour_words)
-    adjacency = region_adjacency(labels, feats)
-    n = regions.n_regions
+    regions = describe_regions(labels, features, n_colour_words=config.n_colour_words)
+    adjacency = region_adjacency(labels, features)
     seconds["features"] = time.perf_counter() - t0
+    return labels, regions, adjacency
 
-    t0 = time.perf_counter()
+
+# -- stage 3: neighbour edges --------------------------------------------------------
+
+def _pair_stage(regions, adjacency, config):
+    """Signed neighbour edges (affinity model) and optional long-range kNN edges."""
+    n = regions.n_regions
     pair_w, threshold = edge_weights(config.affinity, regions, adjacency,
                                      quantile=config.threshold_quantile)
     rows, cols = adjacency.rows, adjacency.cols
@@ -660,23 +264,55 @@ def _build(image, config, seeds, channel_axis, rng):
         kw = -config.smoothness * scale * np.clip(1.0 - kd / max(colour_t, 1e-12), 0.0, 1.0)
         rows, cols = np.concatenate([rows, kr]), np.concatenate([cols, kc])
         pair_w = np.concatenate([pair_w, kw])
+    return rows, cols, pair_w, threshold
 
+
+# -- stage 4: priors, box and seeds --------------------------------------------------
+
+@dataclass(frozen=True, eq=False)
+class _Priors:
+    evidence: np.ndarray          # terminal evidence per region
+    fg_w: np.ndarray | None       # first foreground sample weights (None: no prior)
+    bg_w: np.ndarray | None
+    merged: np.ndarray            # +1 / -1 hard-seeded regions
+    fixed: np.ndarray             # per pixel: 0 free, +1 foreground seed, -1 background
+
+
+def _box_seeds(seeds, spatial, box):
+    """Seeds with every pixel outside ``box`` marked background (a box means that)."""
+    if box is None:
+        return seeds
+    outside = box_map(spatial, box) < 0
+    out = np.zeros(spatial, dtype=np.int64) if seeds is None else np.array(seeds, np.int64)
+    out[outside & (out == 0)] = SEED_BACKGROUND
+    return out
+
+
+def _prior_stage(labels, regions, config, seeds, warnings):
+    n = regions.n_regions
+    spatial = labels.shape
     pmap, inside = prior_map(spatial, config)
     flat_labels = labels.ravel()
-    prior_u = np.zeros(n)
+    evidence = np.zeros(n)
     fg_w = bg_w = None
     if pmap is not None:
-        prior_u = config.prior_strength * np.bincount(flat_labels, weights=pmap.ravel(),
-                                                      minlength=n)
+        evidence = config.prior_strength * np.bincount(flat_labels, weights=pmap.ravel(),
+                                                       minlength=n)
         pos = (pmap > 0) if inside is None else (pmap > 0) | inside
         fg_w = np.bincount(flat_labels, weights=pos.ravel().astype(float),
                            minlength=n) / regions.area
         bg_w = np.bincount(flat_labels, weights=(pmap < 0).ravel().astype(float),
                            minlength=n) / regions.area
+    seeds = _box_seeds(seeds, spatial, config.box)
     merged = np.zeros(n, dtype=np.int8)
+    fixed = np.zeros(spatial, dtype=np.int8)
+    if seeds is not None:
+        fixed[seeds == SEED_FOREGROUND] = 1
+        fixed[seeds == SEED_BACKGROUND] = -1
     if seeds is not None and np.any(seeds):
         merged, seed_warnings = seeded_regions(labels, seeds)
-        warnings.extend(seed_warnings)
+        if config.box is None or np.any(seeds[box_map(spatial, config.box) == 0]):
+            warnings.extend(seed_warnings)
         if fg_w is None:
             fg_w, bg_w = (merged == 1).astype(float), (merged == -1).astype(float)
         else:
@@ -686,81 +322,87 @@ def _build(image, config, seeds, channel_axis, rng):
             fg_w = 1.0 - bg_w
         if not bg_w.any():
             bg_w = 1.0 - fg_w
-    informed = fg_w is not None
-    orientation = "terminal" if informed else "border_rule"
-    with_terminal = informed or config.colour_model
-    hypotheses = []
-    if not informed and config.colour_model:
-        from .priors import get_prior
+    return _Priors(evidence, fg_w, bg_w, merged, fixed)
 
-        box = get_prior("center").pixel_map(spatial, config)
-        central = np.bincount(flat_labels, weights=box.ravel(), minlength=n) > 0.5 * regions.area
-        hypotheses = _start_hypotheses(regions, config.start_clusters, config.model_starts,
-                                       central=central)
-        group = hypotheses[0]
-        fg_w, bg_w = group.astype(float), (~group).astype(float)
 
-    counts = word_histograms(labels, regions.words, n, regions.centres.shape[0])
+# -- stage 5: appearance models and start hypotheses --------------------------------
+
+def _appearance_stage(problem, labels, regions, adjacency, features, priors, config,
+                      generator):
+    """Colour-model rounds from the priors, or from several start hypotheses without them.
+
+    Returns (fg_w, bg_w, region_fg, hypothesis, rule, disagreement).
+    """
     rounds = config.model_rounds if config.colour_model else 0
+    if problem.oriented or not config.colour_model:
+        fg_w, bg_w, region_fg = run_model_rounds(problem, priors.fg_w, priors.bg_w, rounds,
+                                                 generator)
+        return fg_w, bg_w, region_fg, "prior" if problem.oriented else "none", "only", 0.0
+    n = regions.n_regions
+    box = get_prior("center").pixel_map(labels.shape, config)
+    central = np.bincount(labels.ravel(), weights=box.ravel(), minlength=n) > 0.5 * regions.area
+    hypotheses = start_hypotheses(regions, config.start_clusters, config.model_starts,
+                                  central=central, lightness=features[..., 0])
+    outcomes = [(name, run_model_rounds(problem, group.astype(float), (~group).astype(float),
+                                        rounds, generator))
+                for name, group in hypotheses]
+    index, rule, disagreement = choose_end_point(outcomes, regions, adjacency,
+                                                 problem.word_counts)
+    name, (fg_w, bg_w, region_fg) = outcomes[index]
+    return fg_w, bg_w, region_fg, name, rule, disagreement
+
+
+def _no_contrast_graph(caller_spatial, warnings, seconds):
+    labels = np.zeros(caller_spatial, dtype=np.int64)
+    g = graph_from_edges(1, [], [], [])
+    return ImageGraph(labels=labels, graph=g, terminal=None,
+                      region_vertex=np.zeros(1, np.int64), merged=np.zeros(1, np.int8),
+                      offset=0.0, orientation="no_contrast", threshold=0.0,
+                      start=-np.ones(1, np.int8), warnings=warnings, seconds=seconds,
+                      hypothesis="none")
+
+
+def _build(image, config, seeds, channel_axis, rng):
+    """The stages of the graph: prepare, superpixels, edges, priors, appearance, assembly."""
+    seconds = {}
+    prepared, warnings, caller_spatial = _prepare_stage(image, config, seeds, channel_axis,
+                                                        seconds)
+    if prepared is None:
+        return _no_contrast_graph(caller_spatial, warnings, seconds)
+    config = prepared.config
+    labels, regions, adjacency = _region_stage(prepared.features, config, seconds)
+    t0 = time.perf_counter()
+    rows, cols, pair_w, threshold = _pair_stage(regions, adjacency, config)
+    priors = _prior_stage(labels, regions, config, prepared.seeds, warnings)
+    informed = priors.fg_w is not None
+    problem = ModelProblem(
+        n_regions=regions.n_regions, merged=priors.merged, rows=rows, cols=cols,
+        weights=pair_w, prior_evidence=priors.evidence,
+        word_counts=word_histograms(labels, regions.words, regions.n_regions,
+                                    regions.centres.shape[0]),
+        model_strength=config.model_strength, use_models=config.colour_model,
+        with_terminal=informed or config.colour_model, oriented=informed, frame=regions.frame)
     generator = np.random.default_rng(rng)
-
-    def evidence(fg_w, bg_w):
-        u = prior_u.copy()
-        if config.colour_model:
-            u += config.model_strength * colour_evidence(counts, fg_w, bg_w)
-        return u
-
-    def run_rounds(fg_w, bg_w):
-        region_fg = None if fg_w is None else fg_w > 0.5
-        for _ in range(rounds):
-            u = evidence(fg_w, bg_w)
-            g, terminal, region_vertex, offset = _assemble(n, merged, rows, cols, pair_w, u,
-                                                           with_terminal)
-            starts = [_vertex_start(u > 0, region_vertex, merged, terminal, g.n_vertices)]
-            if region_fg is not None:
-                starts.append(_vertex_start(region_fg, region_vertex, merged, terminal,
-                                            g.n_vertices))
-            sides, _ = _local_best(g, starts, generator)
-            ig_tmp = _image_graph(labels, g, terminal, region_vertex, merged, offset,
-                                  orientation, threshold, sides, warnings, seconds)
-            region_fg = ig_tmp.region_foreground(sides)
-            if not informed and _border_rule(region_fg, regions.frame):
-                region_fg = ~region_fg
-            if region_fg.all() or not region_fg.any():
-                break  # one side is empty: a colour model of nothing says nothing
-            fg_w, bg_w = region_fg.astype(float), (~region_fg).astype(float)
-        return fg_w, bg_w, region_fg
-
-    if len(hypotheses) > 1:
-        # several colour-model starts: keep the end point that avoids the frame most
-        best = None
-        for group in hypotheses:
-            outcome = run_rounds(group.astype(float), (~group).astype(float))
-            score = _frame_shyness(outcome[2], regions.area, regions.frame)
-            if best is None or score < best[0]:  # ties: the earlier start
-                best = (score, outcome)
-        fg_w, bg_w, region_fg = best[1]
-    else:
-        fg_w, bg_w, region_fg = run_rounds(fg_w, bg_w)
-
-    u = evidence(fg_w, bg_w) if with_terminal else np.zeros(n)
-    g, terminal, region_vertex, offset = _assemble(n, merged, rows, cols, pair_w, u, with_terminal)
+    fg_w, bg_w, region_fg, hypothesis, rule, disagreement = _appearance_stage(
+        problem, labels, regions, adjacency, prepared.features, priors, config, generator)
+    u = problem.evidence(fg_w, bg_w) if problem.with_terminal else np.zeros(regions.n_regions)
+    g, terminal, region_vertex, offset = problem.assemble(u)
     if region_fg is None:
         region_fg = u > 0
-    start = _vertex_start(region_fg, region_vertex, merged, terminal, g.n_vertices)
-    if transform != "identity":
-        labels = np.ascontiguousarray(apply_transform(labels, transform, inverse=True))
+    start = vertex_start(region_fg, region_vertex, priors.merged, terminal, g.n_vertices)
+    context = PixelContext(features=prepared.features, labels=labels, words=regions.words,
+                           n_words=int(regions.centres.shape[0]), fixed=priors.fixed,
+                           transform=prepared.transform)
+    if prepared.transform != "identity":
+        labels = np.ascontiguousarray(apply_transform(labels, prepared.transform, inverse=True))
     seconds["graph"] = time.perf_counter() - t0
-    return _image_graph(labels, g, terminal, region_vertex, merged, offset, orientation,
-                        threshold, start, warnings, seconds, transform)
-
-
-def _image_graph(labels, g, terminal, region_vertex, merged, offset, orientation, threshold,
-                 start, warnings, seconds, transform="identity"):
     return ImageGraph(labels=labels, graph=g, terminal=terminal, region_vertex=region_vertex,
-                      merged=merged, offset=offset, orientation=orientation,
-                      threshold=float(threshold), start=np.asarray(start, dtype=np.int8),
-                      warnings=warnings, seconds=seconds, canonical_transform=transform)
+                      merged=priors.merged, offset=offset,
+                      orientation="terminal" if informed else "border_rule",
+                      threshold=threshold, start=start, warnings=warnings, seconds=seconds,
+                      canonical_transform=prepared.transform, hypothesis=hypothesis,
+                      choice_rule=rule, hypothesis_disagreement=disagreement,
+                      pixel_context=context)
 
 
 def build_image_graph(image, config: SplitConfig | None = None, *, seeds=None,
@@ -802,50 +444,6 @@ def build_image_graph(image, config: SplitConfig | None = None, *, seeds=None,
     return _build(image, config, seeds, channel_axis, config.seed if rng is None else rng)
 
 
-def mask_to_sides(image_graph: ImageGraph, mask) -> tuple[np.ndarray, float]:
-    """Project a pixel mask onto the vertices of an image graph.
-
-    Each free region takes the side of the majority of its pixels (background on a
-    tie); the terminal takes the foreground side (+1); seeded regions keep their
-    seed.
-
-    Parameters
-    ----------
-    image_graph : ImageGraph
-    mask : bool ndarray, the shape of ``image_graph.labels``
-
-    Returns
-    -------
-    sides : (n_vertices,) int8 ndarray of +-1
-    agreement : float
-        Share of pixels where ``mask`` equals the painted projection (1.0 when the
-        mask follows the regions exactly).
-
-    Examples
-    --------
-    >>> ig = build_image_graph(np.eye(8), SplitConfig(colour_model=False))
-    >>> sides, agreement = mask_to_sides(ig, np.eye(8, dtype=bool))
-    >>> int(sides.sum()), agreement
-    (-48, 1.0)
-    """
-    mask = np.asarray(mask)
-    labels = image_graph.labels
-    if mask.shape != labels.shape:
-        raise ValueError(f"mask shape {mask.shape} does not match the image's spatial shape "
-                         f"{labels.shape}")
-    mask = mask.astype(bool)
-    n = image_graph.n_regions
-    fg = np.bincount(labels.ravel(), weights=mask.ravel().astype(np.float64), minlength=n)
-    area = np.bincount(labels.ravel(), minlength=n)
-    region_fg = 2.0 * fg > area
-    region_fg = np.where(image_graph.merged == 1, True,
-                         np.where(image_graph.merged == -1, False, region_fg))
-    sides = _vertex_start(region_fg, image_graph.region_vertex, image_graph.merged,
-                          image_graph.terminal, image_graph.graph.n_vertices)
-    agreement = float(np.mean(region_fg[labels] == mask))
-    return sides, agreement
-
-
 # -- solving ---------------------------------------------------------------------------
 
 # Default move budget of search methods: enough to polish an SDP rounding on
@@ -882,7 +480,7 @@ def _solve(ig: ImageGraph, config: SplitConfig, generator):
                               rng=generator, **options)
         # keep the better of the solver's split and the rounds' split (polished);
         # the bound holds for the graph whichever split is reported
-        sides, value = _local_best(graph, [result.sides, ig.start], generator)
+        sides, value = local_best(graph, [result.sides, ig.start], generator)
         if result.value >= value:
             sides, value = result.sides, result.value
         return config.method, sides, value, result.upper_bound
@@ -909,12 +507,44 @@ def _solve(ig: ImageGraph, config: SplitConfig, generator):
                 best, best_value = result.sides, result.value
         name = "tabu+" + name if name == "sdp" else "tabu"
         return name, best, best_value, bound
-    sides, value = _local_best(graph, starts, generator)
+    sides, value = local_best(graph, starts, generator)
     return name, sides, value, bound
 
 
 # Random hyperplanes of the Goemans-Williamson rounding in method "auto".
 _HYPERPLANES = 20
+
+
+# -- stage 7: pixel refinement and clean-up ------------------------------------------
+
+def _refine_band(config, labels, n_regions):
+    if config.refine_band is not None:
+        return int(config.refine_band)
+    side = np.sqrt(labels.size / max(n_regions, 1))
+    return max(2, int(round(0.5 * side)))
+
+
+def _refine_stage(ig: ImageGraph, mask, config):
+    """Refine ``mask`` (caller's orientation) at pixel level; returns (mask, graph record)."""
+    ctx = ig.pixel_context
+    if ctx is None:
+        return mask, None
+    inside = apply_transform(mask, ctx.transform) if ctx.transform != "identity" else mask
+    inside = np.where(ctx.fixed == 0, inside, ctx.fixed > 0)
+    if not config.refine or not inside.any() or inside.all():
+        refined, record = inside, None
+    else:
+        result = refine_boundary(ctx.features, inside, ctx.words, ctx.n_words,
+                                 band=_refine_band(config, ctx.labels, ig.n_regions),
+                                 smoothness=config.refine_smoothness,
+                                 strength=config.model_strength, free=ctx.fixed == 0)
+        refined = result.mask
+        record = {"name": "refine", "n_vertices": result.n_vertices,
+                  "value": result.value, "upper_bound": result.upper_bound,
+                  "gap": relative_gap(result.value, result.upper_bound)}
+    if ctx.transform != "identity":
+        refined = np.ascontiguousarray(apply_transform(refined, ctx.transform, inverse=True))
+    return refined, record
 
 
 def _clean(mask, config):
@@ -932,6 +562,16 @@ def _clean(mask, config):
     if config.fill_holes:
         out = ndi.binary_fill_holes(out)
     return out
+
+
+def _no_contrast_result(ig, seconds, warnings, seed):
+    mask = np.zeros(ig.labels.shape, dtype=bool)
+    return SplitResult(mask=mask, labels=ig.labels, value=0.0, upper_bound=0.0, gap=0.0,
+                       foreground_fraction=0.0, n_superpixels=1, orientation="no_contrast",
+                       seconds=seconds, warnings=warnings,
+                       cleanup={"value_before": 0.0, "value_after": 0.0, "pixels_changed": 0},
+                       method="none", seed=_seed_record(seed), image_graph=ig,
+                       canonical_transform=ig.canonical_transform, hypothesis="none")
 
 
 def split(image, config: SplitConfig | None = None, *, seeds=None,
@@ -1030,50 +670,40 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     seconds = dict(ig.seconds)
     warnings = list(ig.warnings)
     if ig.orientation == "no_contrast":
-        mask = np.zeros(ig.labels.shape, dtype=bool)
-        return SplitResult(mask=mask, labels=ig.labels, value=0.0, upper_bound=0.0, gap=0.0,
-                           foreground_fraction=0.0, n_superpixels=1, orientation="no_contrast",
-                           seconds=seconds, warnings=warnings,
-                           cleanup={"value_before": 0.0, "value_after": 0.0, "pixels_changed": 0},
-                           method="none", seed=_seed_record(seed), image_graph=ig,
-                           canonical_transform=ig.canonical_transform)
+        return _no_contrast_result(ig, seconds, warnings, seed)
     t0 = time.perf_counter()
     method, sides, value_before, bound = _solve(ig, config, generator)
     seconds["solve"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()
     mask = ig.paint(sides)
-    if ig.terminal is None and _border_rule(ig.region_foreground(sides),
-                                            _frame_pixels(ig.labels)):
+    if ig.terminal is None and border_rule(ig.region_foreground(sides),
+                                           frame_pixels(ig.labels)):
         mask = ~mask  # no terminal: the side touching the frame less is foreground
-    cleaned = _clean(mask, config)
-    final_sides, _ = mask_to_sides(ig, cleaned)
-    final_mask = ig.paint(final_sides)  # already oriented: +1 is the foreground
+    refined, refine_record = _refine_stage(ig, mask, config)
+    seconds["refine"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    final_mask = _clean(refined, config)
+    final_sides, _ = mask_to_sides(ig, final_mask)
     value_after = cut_value(ig.graph, final_sides)
     seconds["cleanup"] = time.perf_counter() - t0
-    changed = int(np.count_nonzero(final_mask != mask))
+    graphs = [{"name": "superpixels", "n_vertices": int(ig.graph.n_vertices),
+               "value": float(value_after), "upper_bound": bound,
+               "gap": relative_gap(value_after, bound)}]
+    if refine_record is not None:
+        graphs.append(refine_record)
     return SplitResult(
         mask=final_mask, labels=ig.labels, value=value_after, upper_bound=bound,
         gap=relative_gap(value_after, bound), foreground_fraction=float(final_mask.mean()),
         n_superpixels=ig.n_regions, orientation=ig.orientation, seconds=seconds,
         warnings=warnings,
         cleanup={"value_before": float(value_before), "value_after": float(value_after),
-                 "pixels_changed": changed},
-        method=method, seed=_seed_record(seed), image_graph=ig,
-        canonical_transform=ig.canonical_transform)
-
-
-def _frame_pixels(labels):
-    n = int(labels.max()) + 1
-    frame = np.zeros(labels.shape, dtype=bool)
-    rows_axis, cols_axis = labels.ndim - 2, labels.ndim - 1
-    for axis in (rows_axis, cols_axis):
-        index = [slice(None)] * labels.ndim
-        index[axis] = 0
-        frame[tuple(index)] = True
-        index[axis] = -1
-        frame[tuple(index)] = True
-    return np.bincount(labels.ravel(), weights=frame.ravel().astype(float), minlength=n)
+                 "pixels_changed": int(np.count_nonzero(final_mask != refined))},
+        method=method, seed=_seed_record(seed), image_graph=replace(ig, pixel_context=None),
+        canonical_transform=ig.canonical_transform, hypothesis=ig.hypothesis,
+        choice_rule=ig.choice_rule, hypothesis_disagreement=ig.hypothesis_disagreement,
+        refine_changed_fraction=float(np.count_nonzero(refined != mask)) / max(mask.size, 1),
+        graphs=graphs)
 
 
 def _seed_record(seed):

@@ -56,7 +56,7 @@ def test_score_of_split_masks_equals_recorded_values(split_run, capsys):
         rec = records[item["stem"]]
         (m,) = item["masks"]
         assert m["value"] == rec["value"]  # exactly the recorded cut value
-        assert m["agreement"] == 1.0 and m["rank"] == 1
+        assert 0.9 < m["agreement"] <= 1.0 and m["rank"] == 1  # refined off the superpixels
         assert item["seed"] == rec["seed"]
         assert m["value"] <= item["upper_bound"] + 1e-9
 

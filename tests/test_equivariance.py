@@ -84,7 +84,7 @@ def test_transform_names_match_numpy():
 def test_block_sums_are_exact_and_move_with_the_image(shape):
     """The content signature equals plain integer sums over the symmetric blocks, and
     the signature of a moved image is the moved signature (odd and even sides)."""
-    from segcut.pipeline import _KEY_BLOCKS, _block_sums, _symmetric_edges
+    from segcut.orientation import _KEY_BLOCKS, _block_sums, _symmetric_edges
 
     values = np.random.default_rng(8).random(shape)
     q = np.floor(values * 65535 + 0.5).astype(np.int64)
@@ -169,7 +169,8 @@ def test_score_reproduces_the_value_in_any_orientation(scene_base):
         moved_image = np.ascontiguousarray(transform(image))
         ig = build_image_graph(moved_image)
         sides, agreement = mask_to_sides(ig, transform(base.mask))
-        assert cut_value(ig.graph, sides) == base.value and agreement == 1.0
+        assert cut_value(ig.graph, sides) == base.value
+        assert agreement == mask_to_sides(base.image_graph, base.mask)[1]
         r = score(moved_image, [transform(base.mask)])
         assert r.masks[0].value == base.value
 

@@ -18,7 +18,8 @@ from hypothesis import strategies as st
 from checks import NUMPY_TRANSFORMS
 from segcut.config import SplitConfig
 from segcut.errors import ConfigError
-from segcut.pipeline import _frame_shyness, build_image_graph, split
+from segcut.appearance import frame_shyness as _frame_shyness
+from segcut.pipeline import build_image_graph, split
 
 
 FAST = SplitConfig(method="local", model_starts=4)
@@ -120,7 +121,7 @@ def test_model_starts_config():
 def test_start_hypotheses_are_distinct_and_two_sided(n_starts):
     """At most ``n_starts`` starts, the central regions second, no two alike, and
     neither side empty in any start after the first."""
-    from segcut.pipeline import _start_hypotheses
+    from segcut.appearance import HYPOTHESES, start_hypotheses
     from segcut.regions import describe_regions
 
     image, _ = _scene(4, shape=(24, 30))
@@ -128,7 +129,9 @@ def test_start_hypotheses_are_distinct_and_two_sided(n_starts):
     regions = describe_regions(labels, 100.0 * image, n_colour_words=6)
     yy, xx = np.mgrid[:24, :30]
     central = ((np.abs(yy - 11.5) < 5) & (np.abs(xx - 14.5) < 6)).ravel()
-    starts = _start_hypotheses(regions, 4, n_starts, central=central)
+    named = start_hypotheses(regions, 4, n_starts, central=central)
+    assert all(name in HYPOTHESES for name, _ in named)
+    starts = [group for _, group in named]
     assert 1 <= len(starts) <= n_starts
     if n_starts >= 2:
         assert np.array_equal(starts[1], central)

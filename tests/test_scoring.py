@@ -382,7 +382,7 @@ _SUPERPIXELS = dict(n_superpixels=80, pixel_grid_max_pixels=0)
 ])
 def test_score_of_split_mask_equals_its_value(settings_):
     from segcut.config import SplitConfig
-    from segcut.pipeline import split
+    from segcut.pipeline import mask_to_sides, split
     from segcut.scoring import score
 
     cfg = SplitConfig(**_SUPERPIXELS, **settings_)
@@ -390,7 +390,8 @@ def test_score_of_split_mask_equals_its_value(settings_):
     result = split(image, cfg, rng=7)
     r = score(image, [result.mask], config=cfg, rng=7)
     assert r.masks[0].value == result.value  # exactly: same graph, exact projection
-    assert r.masks[0].agreement == 1.0
+    # the pixel refinement moves the mask off the superpixels: the same share either way
+    assert r.masks[0].agreement == mask_to_sides(result.image_graph, result.mask)[1]
     assert r.upper_bound is not None and r.masks[0].value <= r.upper_bound + 1e-9
     assert r.seed == 7
 

@@ -22,6 +22,7 @@ from . import local  # noqa: F401  (registers "local")
 from . import tabu  # noqa: F401,E402  (registers "tabu", the default)
 from . import exact  # noqa: F401,E402  (registers "exact")
 from . import sdp  # noqa: F401,E402  (registers "sdp")
+from . import flow  # noqa: F401,E402  (registers "flow")
 
 __all__ = [
     "CutResult",

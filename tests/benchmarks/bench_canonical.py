@@ -31,7 +31,8 @@ from PIL import Image
 from scipy import ndimage as ndi
 
 from segcut.config import SplitConfig
-from segcut.pipeline import _prepare, apply_transform, canonical_transform, split
+from segcut.pipeline import apply_transform, canonical_transform, split
+from segcut.prepare import prepare_image as _prepare
 
 ROOT = Path(__file__).resolve().parents[2]
 DEFAULT_DATA = ROOT.parent / "shared" / "data" / "horses-dev"

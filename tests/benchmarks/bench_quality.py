@@ -235,7 +235,8 @@ def forced_orientation(name):
 
 def print_orientation_table(rows, images):
     """Mean IoU and F over the eight processing orientations, for each segcut row."""
-    from segcut.pipeline import CANONICAL_TRANSFORMS, _prepare, canonical_transform, split
+    from segcut.pipeline import CANONICAL_TRANSFORMS, canonical_transform, split
+    from segcut.prepare import prepare_image as _prepare
 
     views = list(CANONICAL_TRANSFORMS)
     canonical = [views.index(canonical_transform(_prepare(image, -1)[0]))
