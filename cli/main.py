@@ -1,90 +1,35 @@
 """Entry point of the ``segcut`` command: parse, dispatch, map errors to exit codes.
 
-Exit codes: 0 all done; 1 some inputs failed (the rest finished); 2 usage error;
-3 unexpected error (one line on the terminal, the traceback in a log file);
-130 interrupted.
+Exit codes are defined in :mod:`segcut_cli.common`; options that set config fields
+in :mod:`segcut_cli.options`.
 """
 
 from __future__ import annotations
 
 import argparse
-import math
 import os
 import sys
 import tempfile
 import traceback
 from typing import Sequence
 
-EXIT_OK = 0
-EXIT_FAILED = 1
-EXIT_USAGE = 2
-EXIT_UNEXPECTED = 3
-EXIT_INTERRUPTED = 130
+from .common import (EXIT_FAILED, EXIT_INTERRUPTED, EXIT_UNEXPECTED, EXIT_USAGE, CommandError,
+                     UsageError, write_json)
+from .options import (add_config_options, config_overrides, finite_float, join_negative_values,
+                      non_negative_float, non_negative_int, positive_float, positive_int)
 
 
 class _Parser(argparse.ArgumentParser):
-    """argparse that reports usage errors as one line and exit code 2."""
+    """argparse that reports usage errors as a :class:`UsageError` (one line, exit code 2)."""
 
     def error(self, message):  # noqa: D401
-        self.print_usage(sys.stderr)
-        sys.stderr.write(f"segcut: {message}\n")
-        raise SystemExit(EXIT_USAGE)
-
-
-def _number(text: str, cast, *, minimum, strict: bool = False):
-    """Parse a finite number >= ``minimum`` (> when ``strict``) for argparse."""
-    what = "a whole number" if cast is int else "a number"
-    try:
-        value = cast(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected {what}, got {text!r}") from None
-    if not math.isfinite(value):
-        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
-    if value < minimum or (strict and value == minimum):
-        wanted = "a positive number" if strict else f"a number >= {minimum:g}"
-        raise argparse.ArgumentTypeError(f"expected {wanted}, got {text!r}")
-    return value
-
-
-def _positive_float(text: str) -> float:
-    return _number(text, float, minimum=0.0, strict=True)
-
-
-def _non_negative_float(text: str) -> float:
-    return _number(text, float, minimum=0.0)
-
-
-def _finite_float(text: str) -> float:
-    return _number(text, float, minimum=-math.inf)
-
-
-def _non_negative_int(text: str) -> int:
-    return _number(text, int, minimum=0)
-
-
-def _positive_int(text: str) -> int:
-    return _number(text, int, minimum=1)
+        raise UsageError(message, details={"usage": self.format_usage().strip()})
 
 
 def _add_json_option(parser) -> None:
     parser.add_argument("--json", action="store_true",
-                        help="print one machine-readable JSON object instead of text")
-
-
-def _add_seed_option(parser) -> None:
-    parser.add_argument("--seed", type=_non_negative_int, default=0,
-                        help="random seed; the same seed gives the same output (default 0)")
-
-
-def _add_solver_options(parser, *, default_method: str | None, extra_methods=()) -> None:
-    from segcut.maxcut import available_methods
-
-    names = [*extra_methods, *available_methods()]
-    default = f"default {default_method}" if default_method else "default: the config's"
-    parser.add_argument("--method", default=default_method, metavar="NAME",
-                        help=f"max-cut method: {', '.join(names)} ({default})")
-    parser.add_argument("--time-limit", type=_positive_float, default=None, metavar="S",
-                        help="seconds the solver may use")
+                        help="print one machine-readable JSON object instead of text (also "
+                             "when the command fails: then it holds the error)")
 
 
 def _methods_epilog() -> str:
@@ -94,6 +39,8 @@ def _methods_epilog() -> str:
     lines += [f"  {name:8s} {m.description}" for name, m in available_methods().items()]
     return "\n".join(lines)
 
+
+# --- maxcut -------------------------------------------------------------------------
 
 def _registries_epilog() -> str:
     """What the registries hold (plugins included): priors, affinity models, methods."""
@@ -107,8 +54,6 @@ def _registries_epilog() -> str:
     return "\n".join(lines) + "\n\n" + _methods_epilog()
 
 
-# --- maxcut -------------------------------------------------------------------------
-
 def _add_maxcut_parser(sub) -> None:
     p = sub.add_parser("maxcut", help="solve max-cut on a graph file",
                        description="Solve max-cut on a graph file (edge list 'n m / i j w', "
@@ -117,8 +62,15 @@ def _add_maxcut_parser(sub) -> None:
                        epilog=_methods_epilog(),
                        formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("graph", metavar="GRAPHFILE", help="edge-list (.txt, any other suffix) or .graphml file")
-    _add_solver_options(p, default_method="auto")
-    _add_seed_option(p)
+    from segcut.maxcut import available_methods
+
+    p.add_argument("--method", default="auto", metavar="NAME",
+                   help=f"max-cut method: {', '.join(available_methods())} (default auto: the "
+                        "best cut of the portfolio and a certified bound)")
+    p.add_argument("--time-limit", type=positive_float, default=None, metavar="S",
+                   help="seconds the solver may use")
+    p.add_argument("--seed", type=non_negative_int, default=0,
+                   help="random seed; the same seed gives the same output (default 0)")
     _add_json_option(p)
     p.add_argument("-o", "--out", metavar="SIDES_FILE", default=None,
                    help="write one side label (0 or 1) per vertex, one per line")
@@ -142,19 +94,18 @@ def _add_score_parser(sub) -> None:
                     "of its pixels are on) and report each mask's cut value, the share of "
                     "pixels that agree with that projection, the graph's certified upper "
                     "bound and the gap; masks are ranked by cut value. IMAGE and MASK may be "
-                    "folders: images and masks are then matched by file stem. Mask files: 0 "
-                    "is background, anything else foreground.")
+                    "folders (searched recursively): images and masks are then matched by "
+                    "their path inside the folders without the suffix, else by file name "
+                    "where that is unambiguous. Mask files: 0 is background, anything else "
+                    "foreground.")
     p.add_argument("image", metavar="IMAGE", help="an image file, or a folder of images")
     p.add_argument("masks", metavar="MASK", nargs="+",
-                   help="mask files or folders of masks (matched to images by file stem)")
+                   help="mask files or folders of masks (matched to images by path, then name)")
     p.add_argument("--config", metavar="FILE", default=None,
                    help="TOML config used to build the graph (default: the built-in config)")
     p.add_argument("--seeds", metavar="FILE", default=None,
                    help="seed marker image, as for 'segcut split' (single image only)")
-    p.add_argument("--seed", type=_non_negative_int, default=None,
-                   help="run seed, as given to 'segcut split' (default: the config's seed); "
-                        "each image's seed is derived from it and the image file's content, "
-                        "as 'segcut split' does")
+    add_config_options(p)
     _add_json_option(p)
     p.add_argument("--csv", metavar="FILE", default=None, dest="csv_path",
                    help="also write one row per (image, mask) to this CSV file")
@@ -165,7 +116,8 @@ def _run_score(args) -> int:
     from .commands.score import score
 
     return score(args.image, args.masks, config_path=args.config, seeds_path=args.seeds,
-                 seed=args.seed, as_json=args.json, csv_path=args.csv_path)
+                 overrides=config_overrides(args), as_json=args.json,
+                 csv_path=args.csv_path)
 
 
 # --- compare -------------------------------------------------------------------------
@@ -179,23 +131,27 @@ def _add_compare_parser(sub) -> None:
                     "recall, boundary F-measure, Hausdorff distance and average symmetric "
                     "surface distance per image; means with bootstrap 95% intervals per "
                     "prediction set; sets ranked side by side, and the best two compared "
-                    "image by image. PRED and REF may be files or folders (matched by file "
-                    "stem; each prediction folder is one set). Masks: 0 is background, "
+                    "image by image. PRED and REF may be files or folders (searched "
+                    "recursively; matched by their path inside the folders without the "
+                    "suffix, else by file name where that is unambiguous; each prediction "
+                    "folder is one set). Masks: 0 is background, "
                     "anything else foreground; reference masks with more than two values "
                     "(e.g. JPEG) are cut at half their type's range unless --threshold is "
-                    "given. Unmatched files are listed, not fatal.")
+                    "given. Unmatched files are listed and counted, not fatal; nothing matched "
+                    "at all exits with 1.")
     p.add_argument("predictions", metavar="PRED", nargs="+",
                    help="predicted mask files or folders (one set per folder)")
     p.add_argument("--reference", "-r", metavar="REF", required=True,
                    help="reference mask file or folder")
-    p.add_argument("--tolerance", type=_non_negative_float, default=2.0, metavar="PX",
+    p.add_argument("--tolerance", type=non_negative_float, default=2.0, metavar="PX",
                    help="boundary matching tolerance in pixels (default 2)")
-    p.add_argument("--threshold", type=_finite_float, default=None, metavar="T",
+    p.add_argument("--threshold", type=finite_float, default=None, metavar="T",
                    help="reference foreground is value > T (default: see above)")
     p.add_argument("--rank-by", choices=METRICS, default="iou", metavar="MEASURE",
                    help=f"measure that ranks the sets: {', '.join(METRICS)} (default iou)")
     p.add_argument("--per-image", action="store_true", help="also print one row per image")
-    _add_seed_option(p)
+    p.add_argument("--seed", type=non_negative_int, default=0,
+                   help="seed of the bootstrap resampling (default 0)")
     _add_json_option(p)
     p.add_argument("--csv", metavar="FILE", default=None, dest="csv_path",
                    help="also write one row per (set, image) to this CSV file")
@@ -212,17 +168,6 @@ def _run_compare(args) -> int:
 
 # --- split and report -----------------------------------------------------------------
 
-def _box(text: str) -> tuple:
-    parts = text.split(",")
-    try:
-        box = tuple(int(p) for p in parts)
-    except ValueError:
-        box = ()
-    if len(box) != 4:
-        raise argparse.ArgumentTypeError(f"expected X0,Y0,X1,Y1 (four whole numbers), got {text!r}")
-    return box
-
-
 def _add_split_parser(sub) -> None:
     p = sub.add_parser(
         "split", help="split images (files or folders) into foreground and background",
@@ -231,7 +176,11 @@ def _add_split_parser(sub) -> None:
                     "records.jsonl, summary.csv, run.toml and report.html into OUT. "
                     "Sub-folders are mirrored in masks/ and overlays/. Re-running the same "
                     "command skips images already finished with the same config and file "
-                    "content; a folder holding another config's results is refused.",
+                    "content; a folder holding another config's results is refused (unless "
+                    "--force). Every input gets its own outputs: inputs sharing a name up "
+                    "to the suffix keep their suffix (masks/a.png.png, masks/a.jpg.png), and "
+                    "inputs of two folders sharing a path are prefixed with their folder's "
+                    "name.",
         epilog=_registries_epilog(), formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("paths", metavar="PATH", nargs="+", help="image files and folders")
     p.add_argument("-o", "--out", metavar="OUT", required=True, help="the run folder")
@@ -241,32 +190,21 @@ def _add_split_parser(sub) -> None:
                    help="leave out files whose relative path or name matches (repeatable)")
     p.add_argument("--config", metavar="FILE", default=None,
                    help="TOML config (the options below override it)")
-    p.add_argument("--prior", metavar="PRIOR", default=None,
-                   help="none, or registered priors joined by commas, e.g. border,center "
-                        "(listed below)")
-    p.add_argument("--box", type=_box, default=None, metavar="X0,Y0,X1,Y1",
-                   help="a box known to hold the foreground (pixels; x is the column)")
     p.add_argument("--seeds", metavar="PATH", default=None,
                    help="seed marker image, or a folder of them matched by relative path or stem")
-    p.add_argument("--superpixels", type=_positive_int, default=None, metavar="N",
-                   help="number of superpixels (default: chosen from the image size)")
-    from segcut.affinity import available_affinity_models
-
-    p.add_argument("--affinity", metavar="NAME", default=None,
-                   help=f"affinity model: {', '.join(available_affinity_models())} "
-                        "(default: the config's)")
-    _add_solver_options(p, default_method=None)
-    p.add_argument("--seed", type=_non_negative_int, default=None,
-                   help="random seed (default: the config's, 0); per-image seeds derive from it")
-    p.add_argument("--jobs", "-j", type=_positive_int, default=None, metavar="N",
-                   help="worker processes (default: all cores)")
-    p.add_argument("--force", action="store_true", help="redo images finished by an earlier run")
+    add_config_options(p)
+    p.add_argument("--jobs", "-j", type=positive_int, default=None, metavar="N",
+                   help="worker processes of the local pool (default: all cores); not with "
+                        "--dask-local or --scheduler")
+    p.add_argument("--force", action="store_true",
+                   help="redo images finished by an earlier run, and take over a folder "
+                        "holding another configuration's results (its records are emptied)")
     p.add_argument("--quiet", "-q", action="store_true", help="no progress and no summary line")
     _add_json_option(p)
     where = p.add_mutually_exclusive_group()
     where.add_argument("--scheduler", metavar="ADDRESS", default=None,
                        help="send the work to a Dask distributed scheduler (tcp://host:8786)")
-    where.add_argument("--dask-local", type=_positive_int, default=None, metavar="N",
+    where.add_argument("--dask-local", type=positive_int, default=None, metavar="N",
                        help="start a local Dask cluster with N worker processes")
     p.add_argument("--no-report", action="store_true", help="do not write report.html")
     p.set_defaults(run=_run_split)
@@ -276,11 +214,10 @@ def _run_split(args) -> int:
     from .commands.split import split
 
     return split(args.paths, out=args.out, include=args.include, exclude=args.exclude,
-                 config_path=args.config, prior=args.prior, box=args.box, seeds=args.seeds,
-                 superpixels=args.superpixels, affinity=args.affinity, method=args.method,
-                 time_limit=args.time_limit, seed=args.seed, jobs=args.jobs, force=args.force,
-                 quiet=args.quiet, as_json=args.json, scheduler=args.scheduler,
-                 dask_local=args.dask_local, report=not args.no_report)
+                 config_path=args.config, overrides=config_overrides(args),
+                 seeds=args.seeds, jobs=args.jobs, force=args.force, quiet=args.quiet,
+                 as_json=args.json, scheduler=args.scheduler, dask_local=args.dask_local,
+                 report=not args.no_report)
 
 
 def _add_report_parser(sub) -> None:
@@ -327,30 +264,49 @@ def _log_unexpected(exc: BaseException) -> str:
     return path
 
 
+def _command_of(argv: list) -> str | None:
+    return next((a for a in argv if not a.startswith("-")), None)
+
+
+def _fail(argv: list, code: int, message: str, details: dict | None = None) -> int:
+    """Report a failed command: one line on stderr; with --json, one JSON object on stdout."""
+    sys.stderr.write(f"segcut: {message}\n")
+    if "--json" in argv:
+        write_json(sys.stdout, {"command": _command_of(argv), "error": message,
+                                "exit_code": code, **(details or {})})
+    return code
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run ``segcut`` with ``argv`` (default: ``sys.argv[1:]``); return the exit code."""
-    from segcut.errors import SegcutError
+    from segcut.errors import ConfigError, SegcutError
 
+    argv = list(sys.argv[1:] if argv is None else argv)
     try:
         parser = build_parser()
-        args = parser.parse_args(argv)
+        args = parser.parse_args(join_negative_values(argv))
         return int(args.run(args))
-    except SystemExit as exc:  # argparse: --help, --version, usage errors
+    except SystemExit as exc:  # argparse: --help, --version
         return exc.code if isinstance(exc.code, int) else EXIT_USAGE
     except KeyboardInterrupt:
-        sys.stderr.write("segcut: interrupted\n")
-        return EXIT_INTERRUPTED
+        return _fail(argv, EXIT_INTERRUPTED, "interrupted")
+    except UsageError as exc:
+        if "usage" in exc.details and "--json" not in argv:
+            sys.stderr.write(exc.details["usage"] + "\n")
+        return _fail(argv, EXIT_USAGE, str(exc), exc.details)
+    except CommandError as exc:
+        return _fail(argv, exc.exit_code, str(exc), exc.details)
+    except ConfigError as exc:  # a bad config file or a refused run folder
+        return _fail(argv, EXIT_USAGE, str(exc))
     except SegcutError as exc:
-        sys.stderr.write(f"segcut: {exc}\n")
-        return EXIT_FAILED
+        return _fail(argv, EXIT_FAILED, str(exc))
     except BrokenPipeError:
         return EXIT_FAILED
     except Exception as exc:  # noqa: BLE001 - the one place that catches everything
         log = _log_unexpected(exc)
         first = str(exc).splitlines()[0] if str(exc) else ""
-        sys.stderr.write(f"segcut: unexpected error: {type(exc).__name__}: {first} "
-                         f"(details in {log})\n")
-        return EXIT_UNEXPECTED
+        return _fail(argv, EXIT_UNEXPECTED, f"unexpected error: {type(exc).__name__}: {first} "
+                     f"(details in {log})")
 
 
 if __name__ == "__main__":  # pragma: no cover

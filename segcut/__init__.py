@@ -19,7 +19,8 @@ configure_numba_cache()
 from .config import SplitConfig, load_config  # noqa: E402
 from .errors import ConfigError, InputError, SegcutError, SegcutWarning  # noqa: E402
 from .graph import SignedGraph, as_signed_graph, cut_value, graph_from_edges  # noqa: E402
-from .io import ImageData, read_image, read_mask, read_seeds, write_mask, write_overlay  # noqa: E402
+from .drawing import write_overlay  # noqa: E402
+from .io import ImageData, read_image, read_mask, read_seeds, write_mask  # noqa: E402
 from .maxcut import CutResult, available_methods, register_method, solve_maxcut  # noqa: E402
 from .maxcut.formats import read_graph, write_graph  # noqa: E402
 from .maxcut.sdp import SdpSolution, certify_dual, round_hyperplanes, solve_sdp_relaxation  # noqa: E402

@@ -56,10 +56,9 @@ unknown, black background) into the labels 0 unknown, 1 foreground, 2 background
 
 Writing
 -------
-:func:`write_mask`, :func:`write_image`, :func:`write_overlay` and
-:func:`write_text_atomic` replace their target atomically; :func:`append_line` and
-:func:`append_json_line` add one whole line to a log such as ``records.jsonl``; and
-:func:`atomic_path` gives the same temp-file-then-replace guarantee to any writer.
+:func:`write_mask` and :func:`write_image` replace their target atomically, through
+:func:`segcut.files.atomic_path` (the file-writing helpers live in :mod:`segcut.files`
+and are importable from here too; overlays are drawn by :mod:`segcut.drawing`).
 PNG files are written with fixed options and no metadata, TIFF files without dates,
 so the same array always gives the same bytes.
 """
@@ -67,19 +66,18 @@ so the same array always gives the same bytes.
 from __future__ import annotations
 
 import contextlib
-import json
 import math
 import os
-import secrets
 import stat
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterator
 
 import numpy as np
 
-from .errors import InputError, SegcutError, SegcutWarning
+from .errors import InputError, SegcutWarning
+from .files import (_cannot_write, append_json_line, append_line, atomic_path,  # noqa: F401
+                    read_json_lines, write_bytes_atomic, write_text_atomic)
 
 __all__ = [
     "IMAGE_SUFFIXES",
@@ -87,8 +85,6 @@ __all__ = [
     "SEED_UNKNOWN",
     "SEED_FOREGROUND",
     "SEED_BACKGROUND",
-    "OVERLAY_LINE_COLOR",
-    "OVERLAY_HALO_COLOR",
     "ImageData",
     "read_image",
     "read_mask",
@@ -99,8 +95,6 @@ __all__ = [
     "write_text_atomic",
     "write_image",
     "write_mask",
-    "write_overlay",
-    "overlay_image",
     "append_line",
     "append_json_line",
     "read_json_lines",
@@ -116,11 +110,6 @@ MAX_PIXELS = 64 * 2**20
 
 #: Labels of a seed array (:func:`read_seeds`).
 SEED_UNKNOWN, SEED_FOREGROUND, SEED_BACKGROUND = 0, 1, 2
-
-#: Overlay boundary colours (RGB): an amber line with a dark halo on its outer side,
-#: so the boundary reads on dark and on light images alike.
-OVERLAY_LINE_COLOR = (255, 176, 0)
-OVERLAY_HALO_COLOR = (24, 16, 48)
 
 # Pillow format names we read (MPO is Pillow's name for JPEGs with several pictures).
 _PIL_FORMATS = {"PNG": "PNG", "JPEG": "JPEG", "MPO": "JPEG", "BMP": "BMP", "DIB": "BMP"}
@@ -760,88 +749,6 @@ def _looks_like_old_markers(labels, visible) -> bool:
 # ----------------------------------------------------------------------------- writing
 
 
-@contextlib.contextmanager
-def atomic_path(path) -> Iterator[Path]:
-    """Write a file through a temporary name, then move it into place in one step.
-
-    Yields a temporary path in the target's folder (created if needed; same suffix as
-    the target, so writers that look at the suffix still work). When the block ends
-    normally the file is flushed to disk and renamed over ``path`` with
-    :func:`os.replace`; when the block raises, the temporary file is removed, the
-    target is left as it was and the exception propagates. Failures of the file system
-    itself (folder not writable, disk full while flushing) raise
-    :class:`~segcut.errors.SegcutError` naming the target, in one line.
-
-    Parameters
-    ----------
-    path : str or os.PathLike
-        The final file.
-
-    Examples
-    --------
-    >>> import tempfile, os
-    >>> target = os.path.join(tempfile.mkdtemp(), "notes.txt")
-    >>> with atomic_path(target) as tmp:
-    ...     _ = tmp.write_text("done")
-    >>> Path(target).read_text(), os.listdir(os.path.dirname(target))
-    ('done', ['notes.txt'])
-    """
-    target = Path(path)
-    folder = target.parent
-    stem = target.stem[:80]  # long names stay within the file system's name limit
-    tmp = folder / f".{stem}.{os.getpid()}-{secrets.token_hex(4)}.tmp{target.suffix}"
-    with _cannot_write(target):
-        folder.mkdir(parents=True, exist_ok=True)
-        # created empty with the usual permissions (0o666 minus the umask), exclusively
-        os.close(os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666))
-    try:
-        yield tmp
-        with _cannot_write(target):
-            fd = os.open(tmp, os.O_RDONLY)
-            try:
-                os.fsync(fd)
-            finally:
-                os.close(fd)
-            os.replace(tmp, target)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(tmp)
-        raise
-
-
-@contextlib.contextmanager
-def _cannot_write(path):
-    """Turn an operating-system failure while writing ``path`` into a one-line error."""
-    try:
-        yield
-    except SegcutError:
-        raise
-    except OSError as err:
-        raise SegcutError(f"cannot write the file ({err.strerror or _one_line(err)})",
-                          path=path) from None
-
-
-def write_bytes_atomic(path, data: bytes) -> None:
-    """Replace ``path`` with ``data`` atomically (see :func:`atomic_path`)."""
-    with atomic_path(path) as tmp, _cannot_write(path):
-        with open(tmp, "wb") as f:
-            f.write(data)
-
-
-def write_text_atomic(path, text: str) -> None:
-    """Replace ``path`` with ``text`` (UTF-8) atomically (see :func:`atomic_path`).
-
-    Examples
-    --------
-    >>> import tempfile, os
-    >>> target = os.path.join(tempfile.mkdtemp(), "run.toml")
-    >>> write_text_atomic(target, "seed = 0\\n")
-    >>> Path(target).read_text()
-    'seed = 0\\n'
-    """
-    write_bytes_atomic(path, str(text).encode("utf-8"))
-
-
 def _png_bytes(array: np.ndarray, compress_level: int = 6) -> bytes:
     """PNG with fixed options and no metadata: the same array gives the same bytes."""
     import io as _io
@@ -973,249 +880,6 @@ def write_mask(mask, path) -> None:
     if values.ndim == 3 and suffix == ".png":
         raise ValueError(f"a 3-D mask (shape {values.shape}) is written as TIFF; use a .tif name")
     write_image(values, path)
-
-
-def _display_uint8(image: np.ndarray) -> np.ndarray:
-    """Any image to uint8 for display: uint8 as is, others stretched between the
-    0.5th and 99.5th percentiles of their finite values (flat images become mid-gray)."""
-    if image.dtype == np.uint8:
-        return image
-    if image.dtype == np.bool_:
-        return image.astype(np.uint8) * np.uint8(255)
-    values = image.astype(np.float64)
-    finite = np.isfinite(values)
-    if not finite.any():
-        return np.full(image.shape, 128, np.uint8)
-    low, high = np.percentile(values[finite], [0.5, 99.5])
-    if not high > low:
-        low, high = float(values[finite].min()), float(values[finite].max())
-    if not high > low:
-        return np.full(image.shape, 128, np.uint8)
-    scaled = (np.where(finite, values, low) - low) * (255.0 / (high - low))
-    return np.rint(np.clip(scaled, 0.0, 255.0)).astype(np.uint8)
-
-
-def _as_rgb_and_mask(image, mask, channel_axis):
-    image = np.asarray(image)
-    mask = np.asarray(mask)
-    if mask.dtype != np.bool_:
-        mask = mask != 0
-    if channel_axis is not None:
-        image = np.moveaxis(image, channel_axis, -1)
-    elif image.ndim == mask.ndim + 1:
-        channel_axis = -1
-    if channel_axis is None:
-        if image.shape != mask.shape:
-            raise ValueError(f"mask shape {mask.shape} does not match image shape {image.shape}")
-        gray = _display_uint8(image)
-        rgb = np.repeat(gray[..., None], 3, axis=-1)
-    else:
-        if image.shape[:-1] != mask.shape:
-            raise ValueError(
-                f"mask shape {mask.shape} does not match image shape {image.shape[:-1]} "
-                "(channels last)"
-            )
-        n_channels = image.shape[-1]
-        if n_channels in (1, 2):
-            image = np.repeat(image[..., :1], 3, axis=-1)
-        elif n_channels in (3, 4):
-            image = image[..., :3]
-        else:
-            raise ValueError(f"overlay takes 1 to 4 channels, got {n_channels}")
-        rgb = _display_uint8(image)
-    if mask.ndim not in (2, 3):
-        raise ValueError(f"mask must be 2-D or 3-D, got shape {mask.shape}")
-    return np.array(rgb, dtype=np.uint8), mask
-
-
-def overlay_image(image, mask, *, channel_axis: int | None = None) -> np.ndarray:
-    """The mask's boundary drawn over the image, as an RGB uint8 array.
-
-    The boundary is a line of :data:`OVERLAY_LINE_COLOR` (amber) just inside the
-    foreground with a halo of :data:`OVERLAY_HALO_COLOR` (near black) just outside
-    it, so it stays visible on dark and on light images. Lines are
-    ``max(1, round(min(M, N) / 256))`` pixels wide. Images that are not uint8 (16-bit,
-    float, boolean) are stretched for display between the 0.5th and 99.5th percentiles
-    of their values. For a 3-D stack, the planes at 1/4, 1/2 and 3/4 of its depth are
-    shown side by side, 4 pixels apart on a black ground.
-
-    Parameters
-    ----------
-    image : (M, N[, C]) or (P, M, N[, C]) array_like
-        Gray or colour (1-4 channels; alpha ignored).
-    mask : (M, N) or (P, M, N) array_like
-        Foreground where True (or not 0).
-    channel_axis : int or None, optional
-        Colour axis of ``image``; by default inferred (an extra last axis).
-
-    Returns
-    -------
-    (H, W, 3) uint8 ndarray
-
-    Examples
-    --------
-    >>> image = np.zeros((6, 6), np.uint8)
-    >>> mask = np.zeros((6, 6), bool); mask[2:4, 2:4] = True
-    >>> out = overlay_image(image, mask)
-    >>> out.shape, out[2, 2].tolist(), out[1, 2].tolist(), out[0, 0].tolist()
-    ((6, 6, 3), [255, 176, 0], [24, 16, 48], [0, 0, 0])
-    """
-    from scipy import ndimage as ndi
-
-    rgb, mask = _as_rgb_and_mask(image, mask, channel_axis)
-    if mask.ndim == 3:
-        depth = mask.shape[0]
-        planes = sorted({min(depth - 1, (depth * k) // 4) for k in (1, 2, 3)})
-        tiles = [overlay_image(rgb[p], mask[p]) for p in planes]
-        gap = np.zeros((tiles[0].shape[0], 4, 3), np.uint8)
-        parts = []
-        for tile in tiles:
-            parts.extend([tile, gap])
-        return np.concatenate(parts[:-1], axis=1)
-    width = max(1, int(round(min(mask.shape) / 256)))
-    structure = ndi.generate_binary_structure(2, 1)
-    inner = mask & ~ndi.binary_erosion(mask, structure, iterations=width, border_value=1)
-    outer = ndi.binary_dilation(mask, structure, iterations=width) & ~mask
-    rgb[outer] = OVERLAY_HALO_COLOR
-    rgb[inner] = OVERLAY_LINE_COLOR
-    return rgb
-
-
-def write_overlay(image, mask, path, *, channel_axis: int | None = None) -> None:
-    """Write :func:`overlay_image` as an RGB PNG, atomically.
-
-    Overlays are for looking at, so they use fast compression (zlib level 1): on a
-    512x512 photograph-like picture that took about 0.7 times as long as level 6, for a
-    file about 13% larger (``tests/benchmarks/bench_io.py``).
-
-    Parameters
-    ----------
-    image, mask, channel_axis
-        As in :func:`overlay_image`.
-    path : str or os.PathLike
-        The ``.png`` file.
-    """
-    if Path(path).suffix.lower() != ".png":
-        raise ValueError(f"overlays are written as PNG; got {Path(path).name!r}")
-    write_image(overlay_image(image, mask, channel_axis=channel_axis), path, channel_axis=-1,
-                compress_level=1)
-
-
-def append_line(path, line: str) -> None:
-    """Append one whole line to a text file, safely shared between processes.
-
-    The line and its newline go out in a single ``os.write`` on a file opened with
-    ``O_APPEND`` and are flushed to disk, so concurrent writers never interleave
-    within a line and a crash leaves at most one incomplete last line (which
-    :func:`read_json_lines` ignores).
-
-    Parameters
-    ----------
-    path : str or os.PathLike
-        The file (created if missing, with its folder).
-    line : str
-        The text, without a line break.
-
-    Raises
-    ------
-    ValueError
-        The text contains a line break.
-    """
-    text = str(line)
-    if "\n" in text or "\r" in text:
-        raise ValueError("append_line writes one line; the text contains a line break")
-    data = (text + "\n").encode("utf-8")
-    target = Path(path)
-    with _cannot_write(target):
-        target.parent.mkdir(parents=True, exist_ok=True)
-        fd = os.open(target, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o666)
-        try:
-            written = os.write(fd, data)
-            while written < len(data):  # regular files take it in one go; be safe anyway
-                written += os.write(fd, data[written:])
-            os.fsync(fd)
-        finally:
-            os.close(fd)
-
-
-def _json_ready(value):
-    """numpy scalars/arrays, paths and non-finite floats made JSON-ready."""
-    if isinstance(value, dict):
-        return {str(k): _json_ready(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_json_ready(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return _json_ready(value.tolist())
-    if isinstance(value, (np.bool_,)):
-        return bool(value)
-    if isinstance(value, np.integer):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        value = float(value)
-        return value if math.isfinite(value) else None
-    if isinstance(value, os.PathLike):
-        return os.fspath(value)
-    return value
-
-
-def append_json_line(path, record: dict) -> None:
-    """Append ``record`` as one line of JSON (see :func:`append_line`).
-
-    numpy numbers and arrays become plain JSON numbers and lists, paths become
-    strings, and NaN or infinite floats become ``null`` (JSON has no NaN).
-    Keys keep their order.
-
-    Examples
-    --------
-    >>> import tempfile, os
-    >>> path = os.path.join(tempfile.mkdtemp(), "records.jsonl")
-    >>> append_json_line(path, {"input": "a.png", "value": np.float64(2.5), "gap": float("nan")})
-    >>> Path(path).read_text()
-    '{"input": "a.png", "value": 2.5, "gap": null}\\n'
-    """
-    if not isinstance(record, dict):
-        raise TypeError(f"record must be a dict, got {type(record).__name__}")
-    append_line(path, json.dumps(_json_ready(record), ensure_ascii=False, allow_nan=False))
-
-
-def read_json_lines(path) -> list:
-    """Read a JSON-lines file written by :func:`append_json_line`.
-
-    An incomplete last line (no line break: a writer was interrupted) is ignored;
-    blank lines are skipped. A missing file gives an empty list.
-
-    Raises
-    ------
-    InputError
-        A complete line is not valid JSON (the message names the line).
-
-    Examples
-    --------
-    >>> import tempfile, os
-    >>> path = os.path.join(tempfile.mkdtemp(), "records.jsonl")
-    >>> append_json_line(path, {"input": "a.png"})
-    >>> with open(path, "a") as f:
-    ...     _ = f.write('{"input": "b.p')
-    >>> read_json_lines(path)
-    [{'input': 'a.png'}]
-    """
-    try:
-        data = Path(path).read_bytes()
-    except FileNotFoundError:
-        return []
-    except OSError as err:
-        raise InputError(f"cannot read the file ({err.strerror or err})", path=path) from None
-    lines = data.split(b"\n")
-    records = []
-    for number, raw in enumerate(lines[:-1], start=1):  # lines[-1] is "" or incomplete
-        if not raw.strip():
-            continue
-        try:
-            records.append(json.loads(raw.decode("utf-8")))
-        except (ValueError, UnicodeDecodeError) as err:
-            raise InputError(f"not a valid JSON line ({_one_line(err)})", path=path,
-                             line=number) from None
-    return records
 
 
 # ----------------------------------------------------------------------------- helpers

@@ -5,12 +5,14 @@ them from ``records.jsonl``) into a page that needs nothing from the network: st
 and scripts are inline, overlay thumbnails are embedded as ``data:`` URIs, and the
 two distribution plots are inline SVG drawn here. The page has
 
-- a table with one row per image: thumbnail (a link to the full overlay), input,
-  status, flags, foreground fraction, cut value, certified upper bound, gap,
-  superpixels, seconds, warnings or error. Clicking a column heading sorts by it
+- the run's configuration (prior, box, method, ...) and a link to its ``run.toml``;
+- a table with one row per image: a thumbnail (click it to see the full overlay
+  enlarged), then the columns of :data:`segcut.columns.OUTPUT_COLUMNS` with the flags
+  after the status, and the warnings or error. Clicking a column heading sorts by it
   (again: the other way round); a text box, a status choice and a "flagged only"
   switch filter the rows;
-- flags for splits that deserve a look (:func:`flag_row`);
+- flags for splits that deserve a look (:func:`flag_row`), each explained below the
+  table (:data:`FLAG_MEANINGS`), with a legend of the overlay's colours;
 - histograms of the certified gap and of the foreground fraction.
 
 Opening the page as ``report.html#selftest`` runs a check inside the browser (every
@@ -26,61 +28,109 @@ import html
 import math
 from typing import Sequence
 
-__all__ = ["FLAG_RULES", "flag_row", "histogram_svg", "render_report"]
+__all__ = ["FLAG_MEANINGS", "FLAG_RULES", "flag_row", "histogram_svg", "render_report"]
 
 #: Default thresholds of :func:`flag_row`.
 FLAG_RULES = {
     "min_foreground": 0.02,
     "max_foreground": 0.90,
     "max_gap": 0.05,
+    "max_frame": 0.5,
+    "max_disagreement": 0.3,
+    "max_refine_change": 0.05,
+    "max_uncertain": 0.2,
 }
+
+#: What each flag means (shown on the page beside the table).
+FLAG_MEANINGS = {
+    "failed": "the input could not be split; the error says why",
+    "tiny foreground": "less than {min_foreground:.0%} of the pixels are foreground: the object "
+                       "may have been missed",
+    "huge foreground": "more than {max_foreground:.0%} of the pixels are foreground: the sides "
+                       "may be swapped, or the object fills the picture",
+    "hugs the frame": "more than {max_frame:.0%} of the image's outermost pixels are foreground: "
+                      "the object is cut off by the frame, or background was taken for it",
+    "hypotheses disagree": "the kept split and the best competing start hypothesis differ by "
+                           "more than {max_disagreement:.0%} (1 - IoU): the picture allows two "
+                           "readings; check that the kept one is the object",
+    "refinement changed much": "the pixel-level boundary refinement moved more than "
+                               "{max_refine_change:.0%} of the pixels: the superpixels fitted "
+                               "the object poorly",
+    "uncertain": "more than {max_uncertain:.0%} of the pixels are uncertain",
+    "large gap": "the certified gap is above {max_gap:.0%}: a better cut of this graph may exist",
+    "no bound": "the method gave no certified upper bound",
+    "warnings": "reading or splitting the input left notes (see the last column)",
+}
+
+
+def _above(row: dict, key: str, limit: float) -> bool:
+    value = row.get(key)
+    return isinstance(value, (int, float)) and value > limit
 
 
 def flag_row(row: dict, *, min_foreground: float = FLAG_RULES["min_foreground"],
              max_foreground: float = FLAG_RULES["max_foreground"],
-             max_gap: float = FLAG_RULES["max_gap"]) -> list[str]:
+             max_gap: float = FLAG_RULES["max_gap"], max_frame: float = FLAG_RULES["max_frame"],
+             max_disagreement: float = FLAG_RULES["max_disagreement"],
+             max_refine_change: float = FLAG_RULES["max_refine_change"],
+             max_uncertain: float = FLAG_RULES["max_uncertain"]) -> list[str]:
     """Reasons a split deserves a look (an empty list when none).
+
+    Each flag comes from a signal the run recorded; a signal a record does not have
+    (an older version wrote it) raises no flag. :data:`FLAG_MEANINGS` says what each
+    one means.
 
     Parameters
     ----------
     row : dict
-        With ``status``, ``foreground_fraction``, ``gap`` and ``warnings``.
+        With ``status``, ``foreground_fraction``, ``gap`` and ``warnings``; optionally
+        ``frame_fraction``, ``hypothesis_disagreement``, ``refine_changed_fraction``
+        and ``uncertain_fraction``.
     min_foreground, max_foreground : float
         A foreground fraction below ``min_foreground`` is flagged ``"tiny foreground"``,
         above ``max_foreground`` ``"huge foreground"``.
     max_gap : float
         A certified relative gap above this is flagged ``"large gap"``.
+    max_frame : float
+        A share of foreground among the frame's pixels above this is flagged
+        ``"hugs the frame"``.
+    max_disagreement : float
+        A ``hypothesis_disagreement`` above this is flagged ``"hypotheses disagree"``.
+    max_refine_change : float
+        A ``refine_changed_fraction`` above this is flagged ``"refinement changed much"``.
+    max_uncertain : float
+        An ``uncertain_fraction`` above this is flagged ``"uncertain"``.
 
     Returns
     -------
     list of str
-        Any of ``"failed"``, ``"tiny foreground"``, ``"huge foreground"``,
-        ``"large gap"``, ``"no bound"``, ``"warnings"``.
+        Keys of :data:`FLAG_MEANINGS`, in its order.
 
     Examples
     --------
     >>> flag_row({"status": "ok", "foreground_fraction": 0.01, "gap": 0.08, "warnings": []})
     ['tiny foreground', 'large gap']
+    >>> flag_row({"status": "ok", "foreground_fraction": 0.6, "gap": 0.0, "warnings": [],
+    ...           "frame_fraction": 0.8, "hypothesis_disagreement": 0.45})
+    ['hugs the frame', 'hypotheses disagree']
     >>> flag_row({"status": "failed", "error": "x.png: empty file"})
     ['failed']
     """
     if row.get("status") != "ok":
         return ["failed"]
-    flags = []
-    fraction = row.get("foreground_fraction")
-    if fraction is not None:
-        if fraction < min_foreground:
-            flags.append("tiny foreground")
-        elif fraction > max_foreground:
-            flags.append("huge foreground")
-    gap = row.get("gap")
-    if gap is None:
-        flags.append("no bound")
-    elif gap > max_gap:
-        flags.append("large gap")
-    if row.get("warnings"):
-        flags.append("warnings")
-    return flags
+    found = {
+        "tiny foreground": row.get("foreground_fraction") is not None
+        and row["foreground_fraction"] < min_foreground,
+        "huge foreground": _above(row, "foreground_fraction", max_foreground),
+        "hugs the frame": _above(row, "frame_fraction", max_frame),
+        "hypotheses disagree": _above(row, "hypothesis_disagreement", max_disagreement),
+        "refinement changed much": _above(row, "refine_changed_fraction", max_refine_change),
+        "uncertain": _above(row, "uncertain_fraction", max_uncertain),
+        "large gap": _above(row, "gap", max_gap),
+        "no bound": row.get("gap") is None,
+        "warnings": bool(row.get("warnings")),
+    }
+    return [flag for flag in FLAG_MEANINGS if found.get(flag)]
 
 
 def _nice_ceiling(value: float) -> float:
@@ -196,7 +246,19 @@ th, td { border-bottom:1px solid var(--line); padding:4px 8px; text-align:left; 
 th { position:sticky; top:0; background:#e9edf2; cursor:pointer; user-select:none; white-space:nowrap; }
 th[data-dir=asc]::after { content:" \\25B2"; } th[data-dir=desc]::after { content:" \\25BC"; }
 td.num { text-align:right; font-variant-numeric:tabular-nums; }
-td.thumb img { display:block; max-width:112px; max-height:112px; }
+td.thumb img { display:block; max-width:240px; max-height:240px; cursor:zoom-in; }
+.settings dl { display:flex; flex-wrap:wrap; gap:6px 22px; margin:4px 0; }
+.settings dt { color:var(--muted); font-size:12px; } .settings dd { margin:0; font-weight:600; }
+h2 { font-size:15px; margin:10px 0 4px; }
+.flags ul { margin:4px 0; padding-left:18px; } .flags li { margin:3px 0; }
+.swatch { display:inline-block; width:14px; height:14px; vertical-align:middle; }
+.swatch.fg { background:#5cb0a9; border:2px solid #ffb000; } .swatch.bg { background:#969696; }
+#lightbox { position:fixed; inset:0; background:rgba(10,12,20,0.88); display:flex;
+            flex-direction:column; align-items:center; justify-content:center; z-index:10;
+            cursor:zoom-out; }
+#lightbox[hidden] { display:none; }
+#lightbox img { max-width:94vw; max-height:88vh; image-rendering:auto; background:#fff; }
+#lightbox p { color:#c9d4e0; margin:6px 0 0; }
 .status-ok { color:var(--ok); } .status-failed { color:var(--bad); font-weight:600; }
 .flag { display:inline-block; margin:1px 2px; padding:0 6px; border-radius:9px; font-size:12px;
         background:#fbe9dc; color:var(--flag); border:1px solid #efc3a5; }
@@ -257,7 +319,21 @@ _SCRIPT = r"""
     el.addEventListener('change', applyFilter);
   });
   applyFilter();
-  window.segcutReport = { sortBy: sortBy, applyFilter: applyFilter };
+  const box = document.getElementById('lightbox');
+  const boxImg = box.querySelector('img');
+  function enlarge(link) {
+    const thumb = link.querySelector('img');
+    boxImg.onerror = function () { boxImg.onerror = null; boxImg.src = thumb.src; };
+    boxImg.src = link.getAttribute('href');
+    box.hidden = false;
+  }
+  function shrink() { box.hidden = true; boxImg.removeAttribute('src'); }
+  Array.from(table.querySelectorAll('a.zoom')).forEach(function (a) {
+    a.addEventListener('click', function (e) { e.preventDefault(); enlarge(a); });
+  });
+  box.addEventListener('click', shrink);
+  document.addEventListener('keydown', function (e) { if (e.key === 'Escape') shrink(); });
+  window.segcutReport = { sortBy: sortBy, applyFilter: applyFilter, enlarge: enlarge };
 
   async function selftest() {
     const out = { thumbnails: 0, thumbnails_ok: 0, rows: body.rows.length };
@@ -290,6 +366,13 @@ _SCRIPT = r"""
     flagged.checked = false;
     applyFilter();
     out.svg_plots = document.querySelectorAll('svg.hist').length;
+    const zoom = table.querySelector('a.zoom');
+    if (zoom) {
+      zoom.click();
+      out.lightbox_opened = !box.hidden;
+      box.click();
+      out.lightbox_closed = box.hidden;
+    }
     out.done = true;
     document.getElementById('selftest').textContent = JSON.stringify(out);
   }
@@ -301,47 +384,118 @@ _SCRIPT = r"""
 })();
 """
 
-# (key, heading, type) of the table columns; type "num" sorts numerically.
-_COLUMNS = (
-    ("thumbnail", "overlay", "none"),
-    ("input", "input", "text"),
-    ("status", "status", "text"),
-    ("flags", "flags", "text"),
-    ("foreground_fraction", "foreground", "num"),
-    ("cut_value", "cut value", "num"),
-    ("upper_bound", "upper bound", "num"),
-    ("gap", "gap", "num"),
-    ("n_superpixels", "superpixels", "num"),
-    ("seconds", "seconds", "num"),
-    ("notes", "warnings / error", "text"),
-)
-
-
 def _number_cell(value, text: str) -> str:
     if value is None:
         return '<td class="num" data-sort=""><span class="none">-</span></td>'
     return f'<td class="num" data-sort="{float(value)!r}">{html.escape(text)}</td>'
 
 
-def _fmt(value, spec: str) -> str:
-    return "" if value is None else format(float(value), spec)
+def _shown_columns(rows: Sequence[dict]) -> list:
+    """The data columns of the table: those in the report, optional ones only with values."""
+    from .columns import OUTPUT_COLUMNS
+
+    return [c for c in OUTPUT_COLUMNS if c.in_report
+            and (not c.optional or any(r.get(c.key) is not None for r in rows))]
+
+
+def _thumbnail_cell(row: dict, name: str) -> str:
+    thumb = row.get("thumbnail")
+    if not thumb:
+        return '<td class="thumb"><span class="none">no overlay</span></td>'
+    mime = "image/jpeg" if thumb[:2] == b"\xff\xd8" else "image/png"
+    src = f"data:{mime};base64," + base64.b64encode(thumb).decode("ascii")
+    img = f'<img src="{src}" alt="overlay of {html.escape(name)}">'
+    link = row.get("overlay") or src
+    return (f'<td class="thumb"><a class="zoom" href="{html.escape(link)}" '
+            f'title="click to enlarge">{img}</a></td>')
+
+
+def _table_row(row: dict, columns: list, flags: list) -> str:
+    from .columns import format_value
+
+    name = str(row.get("input", ""))
+    status = str(row.get("status", ""))
+    warnings_ = [str(w) for w in (row.get("warnings") or [])]
+    notes = ([row["error"]] if row.get("error") else []) + warnings_
+    search_text = " ".join([name, status, *flags, *notes]).lower()
+    cells = [_thumbnail_cell(row, name)]
+    for column in columns:
+        value = row.get(column.key)
+        if column.key == "input":
+            cells.append(f'<td data-sort="{html.escape(name.lower())}">{html.escape(name)}</td>')
+        elif column.key == "status":
+            cells.append(f'<td class="status-{html.escape(status)}">{html.escape(status)}</td>')
+            cells.append(f'<td data-sort="{html.escape(" ".join(flags))}">'
+                         + "".join(f'<span class="flag">{html.escape(f)}</span>' for f in flags)
+                         + "</td>")
+        elif column.kind == "num":
+            cells.append(_number_cell(value, format_value(column, value)))
+        else:
+            cells.append(f"<td>{html.escape(format_value(column, value))}</td>")
+    cells.append('<td class="note">' + "<br>".join(html.escape(n) for n in notes) + "</td>")
+    return (f'<tr data-input="{html.escape(name)}" data-status="{html.escape(status)}" '
+            f'data-flagged="{int(bool(flags))}" data-text="{html.escape(search_text)}">'
+            + "".join(cells) + "</tr>")
+
+
+def _heads(columns: list) -> str:
+    heads = [("thumbnail", "overlay", "none", "click a picture to enlarge it")]
+    for c in columns:
+        heads.append((c.key, c.heading, "num" if c.kind == "num" else "text", c.meaning))
+        if c.key == "status":
+            heads.append(("flags", "flags", "text", "splits that deserve a look (see below)"))
+    heads.append(("notes", "warnings / error", "text", ""))
+    return "".join(f'<th data-key="{key}" data-type="{kind}" title="{html.escape(meaning)}">'
+                   f'{html.escape(label)}</th>' for key, label, kind, meaning in heads)
+
+
+def _settings_section(settings: dict | None, config_link: str | None) -> str:
+    if not settings and not config_link:
+        return ""
+    items = "".join(f"<div><dt>{html.escape(k)}</dt><dd>{html.escape(str(v))}</dd></div>"
+                    for k, v in (settings or {}).items())
+    link = (f'<p>The full configuration, with package versions: '
+            f'<a href="{html.escape(config_link)}">{html.escape(config_link)}</a></p>'
+            if config_link else "")
+    return f'<section class="settings"><h2>Configuration</h2><dl>{items}</dl>{link}</section>'
+
+
+def _flags_section(rules: dict, counts: dict) -> str:
+    items = "".join(
+        f'<li><span class="flag">{html.escape(flag)}</span> '
+        f"{html.escape(meaning.format(**rules))} ({counts.get(flag, 0)})</li>"
+        for flag, meaning in FLAG_MEANINGS.items())
+    return (f'<section class="flags"><h2>What the flags mean</h2><ul>{items}</ul>'
+            f'<p class="legend"><span class="swatch fg"></span> foreground (shaded, '
+            f'outlined) <span class="swatch bg"></span> background (as in the image)</p>'
+            f"</section>")
+
+
+def _plural(n: int, word: str) -> str:
+    return f"{n} {word}" if n == 1 else f"{n} {word}s"
 
 
 def render_report(rows: Sequence[dict], *, title: str = "segcut run",
-                  flag_options: dict | None = None) -> str:
+                  flag_options: dict | None = None, settings: dict | None = None,
+                  config_link: str | None = None) -> str:
     """Build the self-contained HTML report of a run.
 
     Parameters
     ----------
     rows : sequence of dict
-        One per image, with ``input``, ``status``, ``foreground_fraction``,
-        ``cut_value``, ``upper_bound``, ``gap``, ``n_superpixels``, ``seconds``,
-        ``warnings`` (list of str), ``error`` (str or None) and optionally
-        ``thumbnail`` (PNG or JPEG bytes) and ``overlay`` (a link, relative to the page).
+        One per image, keyed by the columns of :data:`segcut.columns.OUTPUT_COLUMNS`
+        (``input``, ``status``, ``foreground_fraction``, ``cut_value``, ...;
+        ``warnings`` a list of str, ``error`` str or None), and optionally
+        ``thumbnail`` (PNG or JPEG bytes) and ``overlay`` (a link, relative to the
+        page). Optional columns without a value in any row are left out.
     title : str
         Shown as the page heading.
     flag_options : dict, optional
         Thresholds passed to :func:`flag_row`.
+    settings : dict, optional
+        The run's settings to state on the page (name: value).
+    config_link : str, optional
+        Link to the full configuration file (``run.toml``), relative to the page.
 
     Returns
     -------
@@ -357,57 +511,23 @@ def render_report(rows: Sequence[dict], *, title: str = "segcut run",
     (True, 1, False)
     """
     flag_options = dict(flag_options or {})
-    body_rows = []
-    n_failed = n_flagged = 0
+    rules = {**FLAG_RULES, **flag_options}
+    columns = _shown_columns(rows)
+    body_rows, counts = [], {}
     for row in rows:
         flags = flag_row(row, **flag_options)
-        n_flagged += bool(flags)
-        n_failed += row.get("status") != "ok"
-        name = str(row.get("input", ""))
-        status = str(row.get("status", ""))
-        warnings_ = [str(w) for w in (row.get("warnings") or [])]
-        notes = ([row["error"]] if row.get("error") else []) + warnings_
-        search_text = " ".join([name, status, *flags, *notes]).lower()
-        thumb = row.get("thumbnail")
-        if thumb:
-            mime = "image/jpeg" if thumb[:2] == b"\xff\xd8" else "image/png"
-            src = f"data:{mime};base64," + base64.b64encode(thumb).decode("ascii")
-            img = f'<img src="{src}" alt="overlay of {html.escape(name)}">'
-            link = row.get("overlay")
-            cell = f'<a href="{html.escape(link)}">{img}</a>' if link else img
-        else:
-            cell = '<span class="none">no overlay</span>'
-        gap = row.get("gap")
-        cells = [
-            f'<td class="thumb">{cell}</td>',
-            f'<td data-sort="{html.escape(name.lower())}">{html.escape(name)}</td>',
-            f'<td class="status-{html.escape(status)}">{html.escape(status)}</td>',
-            f'<td data-sort="{html.escape(" ".join(flags))}">'
-            + "".join(f'<span class="flag">{html.escape(f)}</span>' for f in flags) + "</td>",
-            _number_cell(row.get("foreground_fraction"), _fmt(row.get("foreground_fraction"), ".3f")),
-            _number_cell(row.get("cut_value"), _fmt(row.get("cut_value"), ".6g")),
-            _number_cell(row.get("upper_bound"), _fmt(row.get("upper_bound"), ".6g")),
-            _number_cell(gap, "" if gap is None else f"{100 * gap:.3g}%"),
-            _number_cell(row.get("n_superpixels"), _fmt(row.get("n_superpixels"), ".0f")),
-            _number_cell(row.get("seconds"), _fmt(row.get("seconds"), ".2f")),
-            '<td class="note">' + "<br>".join(html.escape(n) for n in notes) + "</td>",
-        ]
-        body_rows.append(
-            f'<tr data-input="{html.escape(name)}" data-status="{html.escape(status)}" '
-            f'data-flagged="{int(bool(flags))}" data-text="{html.escape(search_text)}">'
-            + "".join(cells) + "</tr>")
-    heads = "".join(f'<th data-key="{key}" data-type="{kind}">{html.escape(label)}</th>'
-                    for key, label, kind in _COLUMNS)
+        for flag in flags:
+            counts[flag] = counts.get(flag, 0) + 1
+        body_rows.append(_table_row(row, columns, flags))
+    n_flagged = sum(1 for r in body_rows if 'data-flagged="1"' in r)
+    n_failed = sum(1 for r in rows if r.get("status") != "ok")
     ok_rows = [r for r in rows if r.get("status") == "ok"]
     gap_plot = histogram_svg([r.get("gap") for r in ok_rows], title="certified gap",
                              scale=100.0, unit="%")
     fg_plot = histogram_svg([r.get("foreground_fraction") for r in ok_rows], lo=0.0, hi=1.0,
                             title="foreground fraction")
-    rules = {**FLAG_RULES, **flag_options}
-    summary = (f"{len(rows)} images: {len(rows) - n_failed} split, {n_failed} failed, "
-               f"{n_flagged} flagged (foreground below {rules['min_foreground']:.0%} or above "
-               f"{rules['max_foreground']:.0%}, gap above {rules['max_gap']:.0%}, warnings, "
-               f"failures)")
+    summary = (f"{_plural(len(rows), 'image')}: {len(rows) - n_failed} split, {n_failed} failed, "
+               f"{n_flagged} flagged (see what the flags mean below the table)")
     return "\n".join([
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
@@ -416,6 +536,7 @@ def render_report(rows: Sequence[dict], *, title: str = "segcut run",
         f"<style>{_STYLE}</style></head><body>",
         f"<header><h1>{html.escape(title)}</h1><p>{html.escape(summary)}</p></header>",
         "<main>",
+        _settings_section(settings, config_link),
         f'<section class="plots"><figure>{gap_plot}</figure><figure>{fg_plot}</figure></section>',
         '<section class="controls">'
         '<label>find <input type="search" id="filter-text" placeholder="name, flag, warning"></label>'
@@ -423,9 +544,12 @@ def render_report(rows: Sequence[dict], *, title: str = "segcut run",
         '<option value="ok">ok</option><option value="failed">failed</option></select></label>'
         '<label><input type="checkbox" id="filter-flagged"> flagged only</label>'
         '<span id="shown"></span></section>',
-        f'<table id="results"><thead><tr>{heads}</tr></thead><tbody>',
+        f'<table id="results"><thead><tr>{_heads(columns)}</tr></thead><tbody>',
         *body_rows,
         "</tbody></table>",
+        _flags_section(rules, counts),
+        '<div id="lightbox" hidden><img alt="enlarged overlay"><p>click or press Escape to '
+        'close</p></div>',
         '<pre id="selftest" hidden></pre>',
         f"<script>{_SCRIPT}</script>",
         "</main></body></html>",

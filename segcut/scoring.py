@@ -933,15 +933,6 @@ def _stable_hash(text: str) -> int:
 
 def _jsonable(obj):
     """Copy ``obj`` with numpy scalars made plain and non-finite floats made None."""
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, (bool, np.bool_)):
-        return bool(obj)
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        v = float(obj)
-        return v if math.isfinite(v) else None
-    return obj
+    from .files import json_ready
+
+    return json_ready(obj)

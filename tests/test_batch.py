@@ -25,7 +25,7 @@ from hypothesis import strategies as st
 from PIL import Image
 
 from segcut.batch import (SUMMARY_COLUMNS, find_inputs, hash_file, image_seed, load_records,
-                          run_batch)
+                          run_batch, write_report)
 from segcut.config import SplitConfig
 from segcut.errors import ConfigError, InputError
 
@@ -104,11 +104,56 @@ def test_find_inputs_recurses_sorts_and_lists_skipped(tmp_path):
         (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
         (tmp_path / name).write_bytes(b"")
     listing = find_inputs([tmp_path])
-    assert [i.input for i in listing.items] == ["a/b.JPG", "données/é.tif", "m/x.bmp", "z.png"]
+    assert [i.input for i in listing.items] == ["a/b.JPG", "données/é.tif", "m/x.bmp", "m/x.png",
+                                                "z.png"]
     reasons = {Path(p).name: r for p, r in listing.skipped}
-    assert reasons["notes.txt"] == "not a known image type (.txt)"
-    # m/x.png would write masks/m/x.png, already taken by m/x.bmp
-    assert reasons["x.png"].startswith("output name 'm/x' is already used by")
+    assert reasons == {"notes.txt": "not a known image type (.txt)"}
+    # m/x.bmp and m/x.png share the name up to the suffix: both keep their suffix
+    assert [i.output for i in listing.items] == ["a/b", "données/é", "m/x.bmp", "m/x.png", "z"]
+
+
+def test_every_input_gets_its_own_outputs(tmp_path):
+    """Same stems in one folder and same relative paths in two folders: no input is lost."""
+    for name in ["day1/a.png", "day1/a.jpg", "day2/a.png", "day2/sub/b.png", "c.png"]:
+        (tmp_path / name).parent.mkdir(parents=True, exist_ok=True)
+        (tmp_path / name).write_bytes(b"")
+    listing = find_inputs([tmp_path / "day1", tmp_path / "day2", tmp_path / "c.png"])
+    pairs = [(i.input, i.output) for i in listing.items]
+    # a.png is in both folders: those two are prefixed; then nothing clashes up to the suffix
+    assert pairs == [("a.jpg", "a"), ("day1/a.png", "day1/a"), ("day2/a.png", "day2/a"),
+                     ("sub/b.png", "sub/b"), ("c.png", "c")]
+    assert len({i.output for i in listing.items}) == len(listing.items) == 5
+    assert listing.skipped == ()
+    # the same file given twice is one input
+    twice = find_inputs([tmp_path / "c.png", tmp_path / "c.png"])
+    assert [i.input for i in twice.items] == ["c.png"] and len(twice.skipped) == 1
+    # two folders of the same name: numbered in the order given
+    (tmp_path / "x" / "in").mkdir(parents=True)
+    (tmp_path / "y" / "in").mkdir(parents=True)
+    (tmp_path / "x" / "in" / "a.png").write_bytes(b"")
+    (tmp_path / "y" / "in" / "a.png").write_bytes(b"1")
+    same = find_inputs([tmp_path / "x" / "in", tmp_path / "y" / "in"])
+    assert [i.input for i in same.items] == ["in~1/a.png", "in~2/a.png"]
+
+
+def test_same_stem_inputs_each_get_a_mask_and_a_record(tmp_path):
+    src = tmp_path / "in"
+    write_scenes(src, ["a.png", "sub/a.png"])
+    image, _ = scene(5)
+    Image.fromarray(image).save(src / "a.jpg", quality=95)
+    other = tmp_path / "other"
+    write_scenes(other, ["a.png"])
+    out = tmp_path / "out"
+    summary = run_batch([src, other], out, SplitConfig(), jobs=1, report=False)
+    assert (summary.total, summary.done, summary.failed) == (4, 4, 0)
+    records = load_records(out)
+    # only the clashing relative path a.png is prefixed with its folder's name
+    assert sorted(records) == ["a.jpg", "in/a.png", "other/a.png", "sub/a.png"]
+    masks = {k: r["mask"] for k, r in records.items()}
+    assert masks == {"a.jpg": "masks/a.png", "in/a.png": "masks/in/a.png",
+                     "other/a.png": "masks/other/a.png", "sub/a.png": "masks/sub/a.png"}
+    for r in records.values():
+        assert (out / r["mask"]).is_file() and (out / r["overlay"]).is_file()
 
 
 def test_find_inputs_include_exclude_and_ignore(tmp_path):
@@ -291,6 +336,8 @@ def test_seed_folder_is_matched_by_relative_path_then_stem(scenes, serial_run, t
     Image.fromarray(canvas).save(marks / "d.png")
     again = run_batch([folder], out, SplitConfig(), seeds=marks, jobs=1, report=False)
     assert again.resumed == 3
+    page = write_report(out).read_text(encoding="utf-8")  # the report says seeds were used
+    assert "<dt>seeds</dt><dd>a marker image for 3 of 4</dd>" in page
 
 
 def test_bad_files_become_records_and_the_run_goes_on(tmp_path):
@@ -445,14 +492,37 @@ def test_ctrl_c_exits_130_and_leaves_valid_outputs(tmp_path):
         pass
     _, err = process.communicate(timeout=60)
     assert process.returncode == 130, err.decode()
-    assert err.decode().strip().splitlines()[-1] == "segcut: interrupted"
+    lines = err.decode().strip().splitlines()
+    assert lines[-1] == "segcut: interrupted"
     finished = load_records(out)
     assert 2 <= len(finished) < len(names)
+    # how many finished and how to go on, in one line; the report is rewritten
+    assert lines[-2].startswith(f"segcut: {len(finished)} of 10 images finished")
+    assert "run the same command again" in lines[-2]
+    assert (out / "report.html").read_text(encoding="utf-8").count("<tr data-input=") == len(
+        finished)
     with open(out / "summary.csv", newline="", encoding="utf-8") as fh:
         assert len(list(csv.DictReader(fh))) == len(finished)
     for record in finished.values():
         with Image.open(out / record["mask"]) as im:
             im.load()
+
+
+def test_ctrl_c_waits_until_a_record_and_its_count_agree():
+    """SIGINT inside the held block arrives after it: no record without its count."""
+    from segcut.batch.run import _interrupts_held
+
+    steps = []
+    with pytest.raises(KeyboardInterrupt):
+        with _interrupts_held():
+            os.kill(os.getpid(), signal.SIGINT)
+            time.sleep(0.05)  # Python runs handlers between bytecodes: it would raise here
+            steps.append("record written")
+            steps.append("count updated")
+    assert steps == ["record written", "count updated"]
+    with _interrupts_held():  # no signal: nothing raised, the usual handler is back
+        pass
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
 
 
 def test_process_pool_and_dask_local_cluster_write_identical_bytes(scenes, serial_run, tmp_path):

@@ -71,8 +71,47 @@ def test_unmatched_files_are_listed_not_fatal(folders, capsys):
     code = main(["compare", str(root / "good"), str(root / "poor"), "-r", str(root / "refs")])
     assert code == 0
     err = capsys.readouterr().err
-    assert f"{root / 'good'}: 1 prediction without a reference of the same stem: extra" in err
-    assert f"{root / 'poor'}: no prediction for 1 of 3 references: c" in err
+    assert f"{root / 'good'}: 1 prediction without a reference: {root / 'good' / 'extra.png'}" in err
+    assert f"{root / 'poor'}: 1 reference without a prediction: {root / 'refs' / 'c.png'}" in err
+
+
+def test_sub_folders_are_matched_by_relative_path_and_every_unmatched_file_counted(
+        tmp_path, capsys):
+    """What `segcut split nest -o r` writes (day1/a, day2/a, top) against a nested truth."""
+    masks = {"day1/a": _square(2, 2), "day2/a": _square(8, 12), "top": _square(5, 8)}
+    for key, m in masks.items():
+        write_mask(m, tmp_path / "truth" / f"{key}.png")
+        write_mask(m, tmp_path / "r" / "masks" / f"{key}.png")  # predictions equal the truth
+    write_mask(_square(1, 1), tmp_path / "r" / "masks" / "day3" / "b.png")  # no reference
+    code = main(["compare", str(tmp_path / "r" / "masks"), "-r", str(tmp_path / "truth"),
+                 "--json"])
+    assert code == 0
+    captured = capsys.readouterr()
+    payload = json.loads(captured.out)
+    # every pair is found, each with itself: IoU 1 (identical masks; common knowledge)
+    assert sorted(r["image"] for r in payload["images"]) == ["day1/a", "day2/a", "top"]
+    assert all(r["iou"] == 1.0 for r in payload["images"])
+    assert payload["n_unmatched"] == 1
+    assert payload["unmatched"][0]["files"] == [str(tmp_path / "r" / "masks" / "day3" / "b.png")]
+    assert "1 prediction without a reference" in captured.err
+    # a flat truth folder: matched by file name where that is unambiguous only
+    flat = tmp_path / "flat"
+    write_mask(masks["top"], flat / "top.png")
+    write_mask(masks["day1/a"], flat / "a.png")
+    code = main(["compare", str(tmp_path / "r" / "masks"), "-r", str(flat), "--json"])
+    payload = json.loads(capsys.readouterr().out)
+    assert [r["image"] for r in payload["images"]] == ["top"]  # day1/a or day2/a: ambiguous
+    assert payload["n_unmatched"] == 4  # day1/a, day2/a, day3/b and the reference a.png
+
+
+def test_nothing_matched_fails_with_json(tmp_path, capsys):
+    write_mask(_square(1, 1), tmp_path / "p" / "x.png")
+    write_mask(_square(1, 1), tmp_path / "t" / "y.png")
+    code = main(["compare", str(tmp_path / "p"), "-r", str(tmp_path / "t"), "--json"])
+    assert code == 1
+    payload = json.loads(capsys.readouterr().out)
+    assert payload["exit_code"] == 1 and payload["n_unmatched"] == 2
+    assert payload["error"].startswith("no prediction could be compared")
 
 
 def test_size_mismatch_is_one_line_and_others_still_compared(folders, capsys):
@@ -135,10 +174,16 @@ def test_duplicate_stems_fail_that_image_only(folders, capsys):
     assert {r["image"] for r in json.loads(captured.out)["images"]} == {"b", "c"}
 
 
-def test_missing_reference_is_one_line_error(tmp_path, capsys):
+def test_missing_reference_is_a_one_line_usage_error_also_in_json(tmp_path, capsys):
     code = main(["compare", str(tmp_path), "-r", str(tmp_path / "nowhere")])
-    assert code == 1
+    assert code == 2  # a missing input is a usage error (README: exit codes)
     assert capsys.readouterr().err == f"segcut: {tmp_path / 'nowhere'}: no such file or folder\n"
+    code = main(["compare", str(tmp_path), "-r", str(tmp_path / "nowhere"), "--json"])
+    captured = capsys.readouterr()
+    assert code == 2
+    assert json.loads(captured.out) == {
+        "command": "compare", "exit_code": 2,
+        "error": f"{tmp_path / 'nowhere'}: no such file or folder"}
 
 
 def test_unreadable_prediction_is_reported(folders, capsys):

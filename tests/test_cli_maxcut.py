@@ -97,7 +97,7 @@ def test_bad_file_gives_one_line_and_exit_1(tmp_path, capsys):
 
 
 def test_missing_file(tmp_path, capsys):
-    assert main(["maxcut", str(tmp_path / "absent.txt")]) == 1
+    assert main(["maxcut", str(tmp_path / "absent.txt")]) == 2  # usage error (README)
     assert capsys.readouterr().err == f"segcut: {tmp_path / 'absent.txt'}: no such file\n"
 
 
@@ -123,3 +123,13 @@ def test_python_dash_m_segcut_runs(tmp_path):
     assert done.returncode == 0, done.stderr
     assert json.loads(done.stdout)["value"] == 4.0
     assert np.isfinite(json.loads(done.stdout)["seconds"])
+
+
+def test_method_that_refuses_the_graph_is_a_usage_error_in_command_line_words(test_data, capsys):
+    code = main(["maxcut", str(test_data / "G11.txt"), "--method", "exact", "--json"])
+    assert code == 2
+    captured = capsys.readouterr()
+    assert "--method tabu" in captured.err and "method='" not in captured.err
+    assert "Traceback" not in captured.err
+    payload = json.loads(captured.out)
+    assert payload["exit_code"] == 2 and "--method tabu" in payload["error"]

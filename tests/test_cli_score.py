@@ -103,20 +103,44 @@ def test_unmatched_masks_are_listed_not_fatal(split_run, tmp_path, capsys):
     code = main(["score", str(images), str(extra), "--config", str(out / "run.toml"), "--json"])
     assert code == 0
     captured = capsys.readouterr()
-    assert f"{extra}: 1 mask without an image of the same stem: elsewhere" in captured.err
-    assert f"{extra}: no mask for 1 of 2 images: scene1" in captured.err
-    assert [i["stem"] for i in json.loads(captured.out)["images"]] == ["scene0"]
+    assert f"{extra}: 1 mask without an image: {extra / 'elsewhere.png'}" in captured.err
+    assert f"{extra}: 1 image without a mask: {images / 'scene1.png'}" in captured.err
+    payload = json.loads(captured.out)
+    assert [i["stem"] for i in payload["images"]] == ["scene0"]
+    assert payload["n_unmatched"] == 2
+
+
+def test_nested_folders_are_matched_by_relative_path(split_run, tmp_path, capsys):
+    """Images in sub-folders (as split mirrors them) find their masks; none is skipped."""
+    root, images, out, records = split_run
+    nest = tmp_path / "nest"
+    for day in ("day1", "day2"):
+        (nest / day).mkdir(parents=True)
+        (nest / day / "a.png").write_bytes((images / "scene0.png").read_bytes())
+        write_mask(np.ones((36, 44), dtype=bool), tmp_path / "m" / day / "a.png")
+    capsys.readouterr()
+    code = main(["score", str(nest), str(tmp_path / "m"), "--config", str(out / "run.toml"),
+                 "--json"])
+    assert code == 0
+    payload = json.loads(capsys.readouterr().out)
+    assert sorted(i["stem"] for i in payload["images"]) == ["day1/a", "day2/a"]
+    assert payload["n_unmatched"] == 0
 
 
 def test_missing_mask_path_is_one_line_error(split_run, capsys):
     root, images, _, _ = split_run
     code = main(["score", str(images), str(root / "nowhere")])
-    assert code == 1
+    assert code == 2  # a missing input is a usage error
     assert capsys.readouterr().err == f"segcut: {root / 'nowhere'}: no such file or folder\n"
+    code = main(["score", str(images), str(root / "nowhere"), "--json"])
+    assert code == 2
+    payload = json.loads(capsys.readouterr().out)
+    assert payload == {"command": "score", "exit_code": 2,
+                       "error": f"{root / 'nowhere'}: no such file or folder"}
 
 
 def test_seeds_need_one_image(split_run, capsys):
     root, images, out, _ = split_run
     code = main(["score", str(images), str(out / "masks"), "--seeds", str(images / "scene0.png")])
-    assert code == 1
+    assert code == 2
     assert "--seeds takes one marker image" in capsys.readouterr().err

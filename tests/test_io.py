@@ -24,21 +24,17 @@ from segcut.errors import InputError, SegcutError, SegcutWarning
 from segcut.io import (
     IMAGE_SUFFIXES,
     MAX_PIXELS,
-    OVERLAY_HALO_COLOR,
-    OVERLAY_LINE_COLOR,
     ImageData,
     append_json_line,
     append_line,
     atomic_path,
     is_image_path,
-    overlay_image,
     read_image,
     read_json_lines,
     read_mask,
     read_seeds,
     write_image,
     write_mask,
-    write_overlay,
     write_text_atomic,
 )
 
@@ -627,47 +623,6 @@ def test_write_image_bad_suffix(tmp_path):
         write_image(GRAY, tmp_path / "g.jpg")
 
 
-def test_overlay_colours_and_untouched_pixels(tmp_path):
-    image = np.full((40, 40), 200, np.uint8)  # light image
-    mask = np.zeros((40, 40), bool)
-    mask[10:30, 12:28] = True
-    out = overlay_image(image, mask)
-    assert out.shape == (40, 40, 3) and out.dtype == np.uint8
-    assert out[10, 20].tolist() == list(OVERLAY_LINE_COLOR)  # inner edge
-    assert out[9, 20].tolist() == list(OVERLAY_HALO_COLOR)  # just outside
-    assert out[20, 20].tolist() == [200, 200, 200]  # inside, away from the edge
-    assert out[0, 0].tolist() == [200, 200, 200]
-    # the line stays visible on a dark image: high contrast against black
-    dark = overlay_image(np.zeros((40, 40), np.uint8), mask)
-    assert dark[10, 20].tolist() == list(OVERLAY_LINE_COLOR)
-    write_overlay(image, mask, tmp_path / "o.png")
-    np.testing.assert_array_equal(read_image(tmp_path / "o.png").array, out)
-
-
-def test_overlay_normalises_16bit_and_float(tmp_path):
-    ramp16 = np.tile(np.linspace(1000, 3000, 50).astype(np.uint16), (20, 1))
-    ramp = ramp16.astype(np.float64) / 1e4
-    mask = np.zeros((20, 50), bool)
-    a = overlay_image(ramp16, mask)
-    b = overlay_image(ramp, mask)
-    np.testing.assert_array_equal(a, b)
-    assert a[..., 0].min() == 0 and a[..., 0].max() == 255  # stretched to the full range
-
-
-def test_overlay_colour_and_stack(tmp_path):
-    mask = np.zeros((12, 17), bool)
-    mask[3:8, 4:9] = True
-    out = overlay_image(RGB, mask)
-    assert out[0, 0].tolist() == RGB[0, 0].tolist()
-    stack = RNG.integers(0, 256, (8, 12, 17), dtype=np.uint8)
-    montage = overlay_image(stack, np.repeat(mask[None], 8, axis=0))
-    assert montage.shape == (12, 3 * 17 + 2 * 4, 3)  # three planes, 4-pixel gaps
-    with pytest.raises(ValueError, match=r"mask shape \(12, 16\) does not match image shape"):
-        overlay_image(RGB, mask[:, :16])
-    with pytest.raises(ValueError, match="overlays are written as PNG"):
-        write_overlay(RGB, mask, tmp_path / "o.tif")
-
-
 def test_write_text_atomic(tmp_path):
     target = tmp_path / "deep" / "run.toml"
     write_text_atomic(target, "seed = 3\n# ünïcode\n")
@@ -832,22 +787,6 @@ def test_image_round_trip(tmp_path, image):
     np.testing.assert_array_equal(data.array, image)
 
 
-@settings(max_examples=25, deadline=None)
-@given(
-    mask=hnp.arrays(np.bool_, st.tuples(st.integers(3, 12), st.integers(3, 12))),
-    value=st.integers(0, 255),
-)
-def test_overlay_only_touches_pixels_near_the_boundary(mask, value):
-    from scipy import ndimage as ndi
-
-    image = np.full(mask.shape + (3,), value, np.uint8)
-    out = overlay_image(image, mask)
-    near = (ndi.binary_dilation(mask) & ~mask) | (mask & ~ndi.binary_erosion(mask, border_value=1))
-    np.testing.assert_array_equal(out[~near], image[~near])
-    colours = {OVERLAY_LINE_COLOR, OVERLAY_HALO_COLOR}
-    assert all(tuple(pixel) in colours for pixel in out[near].tolist())
-
-
 def test_image_data_repr_and_frozen():
     data = ImageData(np.zeros((2, 2, 3), np.uint8), -1, "a.png", "PNG", "RGB")
     assert data.spatial_shape == (2, 2) and data.dtype == np.uint8
@@ -915,10 +854,6 @@ def test_damaged_files_give_an_image_or_one_line_error(tmp_path, kind, cut, flip
         assert image.array.dtype in (np.uint8, np.uint16, np.float32, np.float64)
 
 
-def test_overlay_bytes_are_reproducible_and_level_checked(tmp_path):
-    mask = GRAY > 120
-    write_overlay(RGB, mask, tmp_path / "a.png")
-    write_overlay(RGB.copy(), mask.copy(), tmp_path / "b.png")
-    assert (tmp_path / "a.png").read_bytes() == (tmp_path / "b.png").read_bytes()
+def test_png_compress_level_is_checked(tmp_path):
     with pytest.raises(ValueError, match="compress_level must be an integer from 0 to 9"):
         write_image(GRAY, tmp_path / "g.png", compress_level=10)

@@ -90,6 +90,56 @@ def test_page_escapes_names_and_loads_nothing_from_the_network():
 def test_empty_run_gives_a_valid_page():
     page = render_report([], title="nothing")
     assert "0 images: 0 split, 0 failed" in page and page.rstrip().endswith("</html>")
+    assert "1 image: 1 split, 0 failed" in render_report([_row("a")])  # not "1 images"
+
+
+def test_flags_from_the_signals_a_run_records():
+    assert flag_row(_row("a", frame_fraction=0.8)) == ["hugs the frame"]
+    assert flag_row(_row("a", frame_fraction=0.4)) == []
+    assert flag_row(_row("a", hypothesis_disagreement=0.45)) == ["hypotheses disagree"]
+    assert flag_row(_row("a", refine_changed_fraction=0.2)) == ["refinement changed much"]
+    assert flag_row(_row("a", uncertain_fraction=0.5)) == ["uncertain"]
+    # records written before these signals existed raise no flag
+    assert flag_row(_row("a", frame_fraction=None, hypothesis_disagreement=None)) == []
+    assert flag_row(_row("a", hypothesis_disagreement=0.45), max_disagreement=0.5) == []
+    for rule in FLAG_RULES:  # every threshold is a keyword of flag_row
+        flag_row(_row("a"), **{rule: FLAG_RULES[rule]})
+
+
+def test_page_states_the_configuration_explains_flags_and_shows_recorded_signals():
+    from segcut.report import FLAG_MEANINGS
+
+    rows = [_row("a.png", hypothesis="central_box", hypothesis_disagreement=0.45,
+                 frame_fraction=0.1, thumbnail=_png(300, 200), overlay="overlays/a.png")]
+    page = render_report(rows, settings={"prior": "border, center", "box": "none",
+                                         "method": "auto"}, config_link="run.toml")
+    assert "<dt>prior</dt><dd>border, center</dd>" in page and 'href="run.toml"' in page
+    assert "What the flags mean" in page
+    for flag in FLAG_MEANINGS:
+        assert f'<span class="flag">{flag}</span>' in page
+    # signals the records hold get columns; those no record holds do not
+    assert 'data-key="hypothesis_disagreement"' in page and ">central_box<" in page
+    assert 'data-key="refine_changed_fraction"' not in page
+    assert '<a class="zoom" href="overlays/a.png"' in page and 'id="lightbox"' in page
+    assert "hypotheses disagree" in page.split('<tr data-input="a.png"')[1].split("</tr>")[0]
+
+
+def test_a_new_output_column_is_one_edit(tmp_path, monkeypatch):
+    """Adding one Column to OUTPUT_COLUMNS puts it in summary.csv and the report."""
+    import segcut.columns as columns
+    from segcut.batch.records import write_summary
+
+    extra = columns.Column("canonical_transform", "transform", "text", "", "canonical_transform")
+    monkeypatch.setattr(columns, "OUTPUT_COLUMNS", columns.OUTPUT_COLUMNS + (extra,))
+    records = {"a.png": {"input": "a.png", "status": "ok", "canonical_transform": "flip_rows",
+                         "value": 2.5}}
+    write_summary(tmp_path, records)
+    with open(tmp_path / "summary.csv", newline="", encoding="utf-8") as fh:
+        row = next(csv.DictReader(fh))
+    assert row["canonical_transform"] == "flip_rows" and row["cut_value"] == "2.5"
+    (tmp_path / "records.jsonl").write_text(json.dumps(records["a.png"]) + "\n")
+    page = write_report(tmp_path).read_text(encoding="utf-8")
+    assert 'data-key="canonical_transform"' in page and ">flip_rows<" in page
 
 
 def test_write_report_refuses_a_folder_that_is_not_a_run(tmp_path):
@@ -175,3 +225,4 @@ def test_report_in_headless_chromium(tmp_path):
     assert result["sorted"]["foreground_fraction"]["asc"] != result["initial"]  # rows moved
     assert result["filter_visible"] == ["broken.png"]
     assert "broken.png" in result["flagged_visible"]
+    assert result["lightbox_opened"] is True and result["lightbox_closed"] is True

@@ -1,22 +1,25 @@
 """``segcut compare``: agreement of predicted masks with reference masks.
 
-Predictions and references are files or folders; in folders, files are matched by
-stem (the name without its extension), so ``horse007.png`` matches
-``horse007.jpg``. Every prediction folder is one prediction set; the sets are shown
-side by side, ranked, and the best two are compared image by image.
+Predictions and references are files or folders (searched recursively); files are
+matched by their path inside the folders without the suffix, so ``day1/horse007.png``
+matches ``day1/horse007.jpg``, then by file name where that is unambiguous. Every
+prediction folder is one prediction set; the sets are shown side by side, ranked, and
+the best two are compared image by image.
 """
 
 from __future__ import annotations
 
 import csv
 import io
-import json
 import math
 import sys
-from dataclasses import dataclass, field
 from pathlib import Path
 
-EXIT_OK, EXIT_FAILED = 0, 1
+from ..common import (EXIT_FAILED, EXIT_OK, FileSet, NothingDone, UsageError, check_exists,
+                      collect_files, duplicate_lines, match_files, plural, size_text, table,
+                      unmatched_entry, unmatched_lines, write_json)
+from ..common import err as common_err
+from ..common import fmt_number as _fmt
 
 #: Columns of the per-image CSV, after ``set``, ``image``, ``prediction``, ``reference``.
 CSV_MEASURES = (
@@ -32,55 +35,92 @@ _TITLES = {
 }
 
 
-# --- matching files by stem (also used by `segcut score`) --------------------------------
-
-@dataclass
-class FileSet:
-    """Image files of one argument (a folder or a list of files), keyed by stem."""
-
-    name: str
-    files: dict = field(default_factory=dict)       # stem -> Path
-    duplicates: dict = field(default_factory=dict)  # stem -> [Path, ...] (ambiguous)
-
-
-def list_image_files(path: Path) -> list:
-    """Image files directly inside ``path`` (by suffix), sorted by name."""
-    from segcut.errors import InputError
-    from segcut.io import is_image_path
-
-    try:
-        entries = sorted(p for p in path.iterdir() if p.is_file() and is_image_path(p))
-    except OSError as err:
-        raise InputError(f"cannot list the folder: {err.strerror or err}", path=path) from None
-    return entries
+def _groups(pred_paths: list, ref_path: Path) -> list:
+    """``(set name, [paths])``: one set per prediction folder; loose files together
+    (with a reference folder) or one set each (with a reference file)."""
+    if not ref_path.is_dir():
+        return [(str(p), [p]) for p in pred_paths]
+    groups = [(str(p), [p]) for p in pred_paths if p.is_dir()]
+    loose = [p for p in pred_paths if not p.is_dir()]
+    return groups + ([("files", loose)] if loose else [])
 
 
-def collect_files(paths, *, name: str) -> FileSet:
-    """Key the given files (and the image files of given folders) by stem."""
-    found = FileSet(name=name)
-    for p in paths:
-        p = Path(p)
-        for f in (list_image_files(p) if p.is_dir() else [p]):
-            if f.stem in found.duplicates:
-                found.duplicates[f.stem].append(f)
-            elif f.stem in found.files:
-                found.duplicates[f.stem] = [found.files.pop(f.stem), f]
-            else:
-                found.files[f.stem] = f
-    return found
+def _pair_sets(pred_paths: list, ref_path: Path) -> tuple:
+    """Match every prediction set with the references.
+
+    Returns ``(pairs, unmatched, problems)``: ``pairs[set] = {key: (pred, ref)}``;
+    ``unmatched`` a list of :func:`unmatched_entry`; ``problems`` one-line messages
+    about ambiguous files (each counts as a failed input).
+    """
+    if ref_path.is_dir():
+        refs = collect_files([ref_path], name="reference")
+    else:
+        refs = FileSet(name="reference", files={ref_path.stem: ref_path})
+    problems = duplicate_lines(refs, "reference")
+    if not refs.files and not refs.duplicates:
+        raise UsageError("no reference masks found (looked for image files in it and its "
+                         "sub-folders)", path=ref_path)
+    pairs, unmatched = {}, []
+    for set_name, paths in _groups(pred_paths, ref_path):
+        if set_name in pairs:
+            set_name = f"{set_name} ({len(pairs) + 1})"
+        if not ref_path.is_dir() and not paths[0].is_dir():
+            pairs[set_name] = {ref_path.stem: (paths[0], ref_path)}  # a file against the one
+            continue
+        found = collect_files(paths, name=set_name)
+        problems += duplicate_lines(found, "prediction")
+        matched, preds_only, refs_only = match_files(found.files, refs.files)
+        if ref_path.is_dir():
+            refs_only = [k for k in refs_only if k not in found.duplicates]
+            unmatched += [
+                unmatched_entry(set_name, "prediction without a reference",
+                                [found.files[k] for k in preds_only]),
+                unmatched_entry(set_name, "reference without a prediction",
+                                [refs.files[k] for k in refs_only])]
+        elif not matched:
+            unmatched.append(unmatched_entry(set_name, "reference without a prediction",
+                                             [ref_path]))
+        pairs[set_name] = matched
+    return pairs, [u for u in unmatched if u["count"]], problems
 
 
-def check_exists(path: Path) -> None:
-    """One-line InputError when ``path`` is neither a file nor a folder."""
-    from segcut.errors import InputError
+def _compare_pairs(pairs: dict, *, threshold, tolerance, err) -> tuple:
+    """Read and compare every pair (each reference read once).
 
-    if not path.exists():
-        raise InputError("no such file or folder", path=path)
+    Returns ``(results, rows, notes, failed)``.
+    """
+    from segcut.errors import SegcutError
+    from segcut.io import read_mask
+    from segcut.scoring import compare_masks
 
-
-def _err(stream, path, message: str) -> None:
-    where = f"{path}: " if path is not None else ""
-    stream.write(f"segcut: {where}{message}\n")
+    ref_cache: dict = {}
+    results, rows, notes, failed = {}, [], [], 0
+    for set_name, matched in pairs.items():
+        results[set_name] = {}
+        for key in sorted(matched):
+            p_path, r_path = matched[key]
+            try:
+                if r_path not in ref_cache:
+                    ref_cache[r_path] = read_mask(r_path, threshold=threshold)
+                    if not ref_cache[r_path].any():
+                        notes.append(f"{r_path}: reference mask is empty (no foreground pixel); "
+                                     "scored by the empty-mask rules")
+                ref = ref_cache[r_path]
+                pred = read_mask(p_path)
+                if pred.shape != ref.shape:
+                    raise SegcutError(f"mask size {size_text(pred.shape)} does not match the "
+                                      f"reference {r_path} size {size_text(ref.shape)}",
+                                      path=p_path)
+                m = compare_masks(pred, ref, tolerance=tolerance)
+            except SegcutError as exc:
+                common_err(err, None, str(exc))
+                failed += 1
+                continue
+            results[set_name][key] = m
+            rows.append({"set": set_name, "image": key, "prediction": str(p_path),
+                         "reference": str(r_path), **{k: m[k] for k in CSV_MEASURES},
+                         "distances_finite": m["distances_finite"]})
+    return results, rows, notes, failed
 
 
 # --- the command -------------------------------------------------------------------------
@@ -93,11 +133,13 @@ def compare(predictions, *, reference, tolerance: float = 2.0, threshold: float 
     Parameters
     ----------
     predictions : list of str
-        Files or folders. Each folder is one prediction set (named by the path as
-        given). With a reference *folder*, the files given directly form one more set
-        named ``files``, matched by stem; with a reference *file*, each prediction
-        file is its own set compared with that reference, and folders are searched
-        for the reference's stem.
+        Files or folders (searched recursively). Each folder is one prediction set
+        (named by the path as given). With a reference *folder*, the files given
+        directly form one more set named ``files``; with a reference *file*, each
+        prediction file is its own set compared with that reference, and folders are
+        searched for the reference's name. Files are matched by their path inside
+        the folders without the suffix (``day1/a``), then by file name where that is
+        unambiguous (:func:`segcut_cli.common.match_files`).
     reference : str
         A reference mask file or a folder of them.
     tolerance : float
@@ -120,121 +162,49 @@ def compare(predictions, *, reference, tolerance: float = 2.0, threshold: float 
     -------
     int
         0 when every matched pair was compared; 1 when some input failed (the others
-        were still compared). Unmatched files are listed but do not fail the run.
+        were still compared). Unmatched files are listed and counted but do not fail
+        the run.
+
+    Raises
+    ------
+    UsageError
+        A path that does not exist, or a reference folder without masks.
+    NothingDone
+        No prediction could be compared with a reference.
     """
-    from segcut.errors import InputError, SegcutError
-    from segcut.io import read_mask, write_text_atomic
-    from segcut.scoring import compare_masks, summarize_comparison
+    from segcut.files import write_text_atomic
+    from segcut.scoring import summarize_comparison
 
     out = sys.stdout if stdout is None else stdout
     err = sys.stderr if stderr is None else stderr
-
     ref_path = Path(reference)
     check_exists(ref_path)
     pred_paths = [Path(p) for p in predictions]
     for p in pred_paths:
         check_exists(p)
-
-    # pairs[set_name] = {image_id: (pred_path, ref_path)}
-    pairs: dict = {}
-    notes: list = []      # empty references and the like
-    unmatched: list = []  # files without a partner: listed, not fatal
-    failed = 0
-    if ref_path.is_dir():
-        refs = collect_files([ref_path], name="reference")
-        groups = [(str(p), [p]) for p in pred_paths if p.is_dir()]
-        loose = [p for p in pred_paths if not p.is_dir()]
-        if loose:
-            groups.append(("files", loose))
-    else:
-        refs = FileSet(name="reference", files={ref_path.stem: ref_path})
-        groups = [(str(p), [p]) for p in pred_paths]
-    for stem, paths in sorted(refs.duplicates.items()):
-        _err(err, paths[0].parent, f"several reference files have the stem {stem!r} "
-             f"({', '.join(p.name for p in paths)}); rename all but one")
-        failed += 1
-    if not refs.files and not refs.duplicates:
-        raise InputError("no reference masks found (looked for "
-                         "image files directly inside)", path=ref_path)
-    for set_name, paths in groups:
-        if set_name in pairs:
-            set_name = f"{set_name} ({len(pairs) + 1})"
-        found = collect_files(paths, name=set_name)
-        for stem, dup in sorted(found.duplicates.items()):
-            _err(err, dup[0].parent, f"several prediction files have the stem {stem!r} "
-                 f"({', '.join(p.name for p in dup)}); rename all but one")
-            failed += 1
-        matched = {}
-        if not ref_path.is_dir() and not paths[0].is_dir():
-            matched[ref_path.stem] = (paths[0], ref_path)  # a file against the one reference
-        else:
-            orphans = []
-            for stem, f in found.files.items():
-                if stem in refs.files:
-                    matched[stem] = (f, refs.files[stem])
-                elif ref_path.is_dir():
-                    orphans.append(stem)
-            if orphans:
-                unmatched.append(f"{set_name}: {len(orphans)} prediction"
-                                 f"{'s' if len(orphans) != 1 else ''} without a reference of "
-                                 f"the same stem: {_stems(orphans)}")
-            if not ref_path.is_dir() and not matched:
-                unmatched.append(f"{ref_path}: no prediction with the stem {ref_path.stem!r} "
-                                 f"in {set_name}")
-            if ref_path.is_dir():
-                missing = [stem for stem in refs.files
-                           if stem not in found.files and stem not in found.duplicates]
-                if missing:
-                    unmatched.append(f"{set_name}: no prediction for {len(missing)} of "
-                                     f"{len(refs.files)} references: {_stems(missing)}")
-        pairs[set_name] = matched
-
-    # read and compare; each reference is read once
-    ref_cache: dict = {}
-    results: dict = {}
-    rows: list = []
-    for set_name, matched in pairs.items():
-        results[set_name] = {}
-        for stem in sorted(matched):
-            p_path, r_path = matched[stem]
-            try:
-                if r_path not in ref_cache:
-                    ref_cache[r_path] = read_mask(r_path, threshold=threshold)
-                    if not ref_cache[r_path].any():
-                        notes.append(f"{r_path}: reference mask is empty (no foreground pixel); "
-                                     "scored by the empty-mask rules")
-                ref = ref_cache[r_path]
-                pred = read_mask(p_path)
-                if pred.shape != ref.shape:
-                    raise InputError(f"mask size {_size(pred.shape)} does not match the "
-                                     f"reference {r_path} size {_size(ref.shape)}", path=p_path)
-                m = compare_masks(pred, ref, tolerance=tolerance)
-            except SegcutError as exc:
-                _err(err, None, str(exc))
-                failed += 1
-                continue
-            results[set_name][stem] = m
-            rows.append({"set": set_name, "image": stem, "prediction": str(p_path),
-                         "reference": str(r_path), **{k: m[k] for k in CSV_MEASURES},
-                         "distances_finite": m["distances_finite"]})
-
-    for line in unmatched + notes:
-        _err(err, None, line)
+    pairs, unmatched, problems = _pair_sets(pred_paths, ref_path)
+    for line in problems:
+        common_err(err, None, line)
+    results, rows, notes, failed = _compare_pairs(pairs, threshold=threshold,
+                                                  tolerance=tolerance, err=err)
+    failed += len(problems)
+    for line in unmatched_lines(unmatched) + notes:
+        common_err(err, None, line)
+    n_unmatched = sum(u["count"] for u in unmatched)
     compared = {k: v for k, v in results.items() if v}
     if not compared:
-        _err(err, None, "no prediction could be compared with a reference")
-        return EXIT_FAILED
-
+        raise NothingDone("no prediction could be compared with a reference "
+                          f"({plural(n_unmatched, 'file')} without a partner)",
+                          details={"unmatched": unmatched, "n_unmatched": n_unmatched,
+                                   "failed": failed})
     summary = summarize_comparison(compared, rank_by=rank_by, rng=seed)
     if csv_path is not None:
         write_text_atomic(csv_path, _csv_text(rows))
     if as_json:
-        payload = {"command": "compare", "tolerance": float(tolerance),
-                   "threshold": threshold, "summary": summary.to_dict(),
-                   "images": [_json_row(r) for r in rows],
-                   "unmatched": unmatched, "notes": notes,
-                   "failed": failed}
-        out.write(json.dumps(payload, indent=2, allow_nan=False) + "\n")
+        write_json(out, {"command": "compare", "tolerance": float(tolerance),
+                         "threshold": threshold, "summary": summary.to_dict(),
+                         "images": rows, "unmatched": unmatched, "n_unmatched": n_unmatched,
+                         "notes": notes, "failed": failed})
     else:
         if per_image:
             out.write(_per_image_table(rows) + "\n\n")
@@ -243,23 +213,6 @@ def compare(predictions, *, reference, tolerance: float = 2.0, threshold: float 
 
 
 # --- output --------------------------------------------------------------------------------
-
-def _stems(stems: list, limit: int = 12) -> str:
-    shown = ", ".join(stems[:limit])
-    return shown + (f" and {len(stems) - limit} more" if len(stems) > limit else "")
-
-
-def _size(shape) -> str:
-    return " x ".join(str(s) for s in shape[::-1]) if len(shape) == 2 else str(tuple(shape))
-
-
-def _fmt(value: float, digits: int = 3) -> str:
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return "-"
-    if math.isinf(value):
-        return "inf"
-    return f"{value:.{digits}f}"
-
 
 def _cell(summary, metric: str) -> str:
     digits = 2 if metric in ("hausdorff", "assd") else 3
@@ -272,18 +225,6 @@ def _cell(summary, metric: str) -> str:
     return text
 
 
-def _table(header: list, body: list, *, right: set) -> str:
-    widths = [max(len(str(r[i])) for r in [header] + body) for i in range(len(header))]
-    lines = []
-    for k, r in enumerate([header] + body):
-        cells = [str(c).rjust(w) if i in right else str(c).ljust(w)
-                 for i, (c, w) in enumerate(zip(r, widths))]
-        lines.append("  ".join(cells).rstrip())
-        if k == 0:
-            lines.append("  ".join("-" * w for w in widths))
-    return "\n".join(lines)
-
-
 def summary_table(summary, *, tolerance: float) -> str:
     """The ranked sets side by side (one column each, best first) and the paired comparison."""
     metrics = [m for m in _TITLES if m in summary.sets[0].metrics]
@@ -294,7 +235,7 @@ def summary_table(summary, *, tolerance: float) -> str:
     lines = [
         f"Means over images [{pct}% bootstrap interval, {summary.n_resamples} resamples]; "
         f"boundary tolerance {tolerance:g} px; sets ranked by {summary.rank_by}, best first.",
-        _table(header, body, right=set()),
+        table(header, body, right=set()),
     ]
     if any(s.metrics[m].n_infinite for s in summary.sets for m in metrics):
         lines.append("inf: one mask has a boundary and the other has none (an empty or full "
@@ -322,14 +263,7 @@ def _per_image_table(rows: list) -> str:
     header = ["set", "image"] + [_TITLES[m] for m in metrics]
     body = [[r["set"], r["image"]] + [_fmt(r[m], 2 if m in ("hausdorff", "assd") else 3)
                                       for m in metrics] for r in rows]
-    return _table(header, body, right=set(range(2, 2 + len(metrics))))
-
-
-def _json_row(row: dict) -> dict:
-    out = {}
-    for k, v in row.items():
-        out[k] = None if isinstance(v, float) and not math.isfinite(v) else v
-    return out
+    return table(header, body, right=set(range(2, 2 + len(metrics))))
 
 
 def _csv_text(rows: list) -> str:

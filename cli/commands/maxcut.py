@@ -3,16 +3,29 @@
 from __future__ import annotations
 
 import json
+import re
 import sys
 import time
+from pathlib import Path
 
-EXIT_OK = 0
-EXIT_USAGE = 2
+from ..common import EXIT_OK, UsageError
 
 # A tiny graph with one non-unit weight: solving it once compiles (or loads from the
 # cache) every kernel the method uses, including the SDP start of "tabu", so that
 # ``solve_seconds`` measures the solver alone.
 _WARM_UP_EDGES = ([0, 1, 2, 3, 4, 0], [1, 2, 3, 4, 0, 2], [1.0, 1.0, 1.0, 1.0, 1.0, -0.5])
+
+
+def command_line_words(message: str) -> str:
+    """Python keyword syntax in a solver's message as the command line's options.
+
+    Examples
+    --------
+    >>> command_line_words("use method='tabu' or set time_limit=5")
+    'use --method tabu or set --time-limit 5'
+    """
+    message = re.sub(r"\bmethod='([^']*)'", r"--method \1", message)
+    return re.sub(r"\b([a-z]+)_([a-z]+)=", r"--\1-\2 ", message)
 
 
 def _format_number(value) -> str:
@@ -45,8 +58,15 @@ def maxcut(graph_path, *, method: str = "auto", time_limit: float | None = None,
     Returns
     -------
     int
-        0 on success, 2 for an unknown method. Unreadable files raise
-        :class:`segcut.errors.InputError`, which the caller reports in one line.
+        0 on success.
+
+    Raises
+    ------
+    UsageError
+        An unknown method, a missing file, or a method that refuses this graph (the
+        message in command-line words).
+    segcut.errors.InputError
+        An unreadable graph file (reported in one line, exit code 1).
     """
     from segcut.graph import graph_from_edges
     from segcut.maxcut import available_methods, solve_maxcut
@@ -55,13 +75,17 @@ def maxcut(graph_path, *, method: str = "auto", time_limit: float | None = None,
     clock = time.perf_counter()
     methods = available_methods()
     if method not in methods:
-        sys.stderr.write(f"segcut maxcut: unknown method {method!r}; choose one of "
-                         f"{', '.join(methods)}\n")
-        return EXIT_USAGE
+        raise UsageError(f"maxcut: unknown method {method!r}; choose one of "
+                         f"{', '.join(methods)}")
+    if not Path(graph_path).exists():
+        raise UsageError("no such file", path=graph_path)
     graph = read_graph(graph_path)
     warm_up = graph_from_edges(5, *_WARM_UP_EDGES)
-    solve_maxcut(warm_up, method=method, time_limit=0.05, rng=0)
-    result = solve_maxcut(graph, method=method, time_limit=time_limit, rng=seed)
+    try:
+        solve_maxcut(warm_up, method=method, time_limit=0.05, rng=0)
+        result = solve_maxcut(graph, method=method, time_limit=time_limit, rng=seed)
+    except ValueError as err:  # the method refuses this graph or an option
+        raise UsageError(f"maxcut: {command_line_words(str(err))}", path=graph_path) from None
     if sides_path is not None:
         write_sides(result.sides, sides_path)
     seconds = time.perf_counter() - clock

@@ -20,8 +20,6 @@ the target, so an existing file is never left half-written.
 from __future__ import annotations
 
 import math
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -214,23 +212,9 @@ def _format_weight(w: float) -> str:
 
 
 def _write_atomic(path: Path, text: str) -> None:
-    folder = path.parent if str(path.parent) else Path(".")
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    except OSError as err:
-        raise InputError(f"cannot write: {err.strerror or err}", path=path) from None
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except BaseException as err:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        if isinstance(err, OSError):
-            raise InputError(f"cannot write: {err.strerror or err}", path=path) from None
-        raise
+    from ..files import write_text_atomic  # the one atomic-write helper of the package
+
+    write_text_atomic(path, text)
 
 
 def write_graph(graph, path) -> None:

@@ -27,16 +27,9 @@ import tifffile
 from PIL import Image
 from scipy import ndimage as ndi
 
-from segcut.io import (
-    append_json_line,
-    overlay_image,
-    read_image,
-    read_mask,
-    write_image,
-    write_mask,
-    write_overlay,
-    write_text_atomic,
-)
+from segcut.drawing import overlay_image, write_overlay
+from segcut.files import append_json_line, write_text_atomic
+from segcut.io import read_image, read_mask, write_image, write_mask
 
 
 def make_picture(size: int, rng) -> np.ndarray:
