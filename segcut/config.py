@@ -94,14 +94,17 @@ class SplitConfig:
         box is foreground); empty for no prior.
     box : (x0, y0, x1, y1) tuple of int, or None
         A box known to contain the foreground (pixels; x is the column). Outside
-        it is taken as background.
+        it is known background (hard background seeds); its central part
+        (``center_fraction`` of each side) is the first foreground sample of the
+        colour models, which are then re-estimated from the current split.
     prior_strength : float
         Weight per pixel of the prior terminal edges, relative to appearance edges.
     border_width : float
         Width of the frame band used by the border prior, as a fraction of the
         shorter image side.
     center_fraction : float
-        Side of the central box of the center prior, as a fraction of each image side.
+        Side of the central box of the center prior, as a fraction of each image side
+        (and of the central part of a ``box``, as a fraction of each box side).
     colour_model : bool
         Learn per-image colour models for foreground and background and add their
         log-likelihood ratios as terminal edges.

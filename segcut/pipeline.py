@@ -282,6 +282,25 @@ class _Priors:
     fixed: np.ndarray             # per pixel: 0 free, +1 foreground seed, -1 background
 
 
+def _box_core(inside, config):
+    """The central part of a box (``center_fraction`` of each of its sides).
+
+    A box tight around an object holds much background too: its central part is a
+    purer first foreground sample of the colour models than the whole box (dev
+    photographs with the reference mask's bounding box, one run: whole box 0.650
+    mean IoU, central 70% 0.683, 50% 0.736, 30% 0.778, 20% and 10% 0.785).
+    """
+    rows = np.flatnonzero(inside.any(axis=-1).reshape(-1, inside.shape[-2]).any(axis=0))
+    cols = np.flatnonzero(inside.reshape(-1, inside.shape[-1]).any(axis=0))
+    h, w = rows[-1] - rows[0] + 1, cols[-1] - cols[0] + 1
+    core_h = max(1, int(round(config.center_fraction * h)))
+    core_w = max(1, int(round(config.center_fraction * w)))
+    r0, c0 = rows[0] + (h - core_h) // 2, cols[0] + (w - core_w) // 2
+    out = np.zeros_like(inside)
+    out[..., r0:r0 + core_h, c0:c0 + core_w] = True
+    return out
+
+
 def _box_seeds(seeds, spatial, box):
     """Seeds with every pixel outside ``box`` marked background (a box means that)."""
     if box is None:
@@ -302,7 +321,7 @@ def _prior_stage(labels, regions, config, seeds, warnings):
     if pmap is not None:
         evidence = config.prior_strength * np.bincount(flat_labels, weights=pmap.ravel(),
                                                        minlength=n)
-        pos = (pmap > 0) if inside is None else (pmap > 0) | inside
+        pos = (pmap > 0) if inside is None else (pmap > 0) | _box_core(inside, config)
         fg_w = np.bincount(flat_labels, weights=pos.ravel().astype(float),
                            minlength=n) / regions.area
         bg_w = np.bincount(flat_labels, weights=(pmap < 0).ravel().astype(float),
