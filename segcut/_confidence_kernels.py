@@ -1,22 +1,13 @@
 """numba kernel of the confidence stage: forced flips and their cascades.
 
-Only numpy and numba are imported here. The kernel takes raw CSR arrays, an int8
+Only numpy, numba and the 1-flip update of the max-cut kernels are imported here. The kernel takes raw CSR arrays, an int8
 ``sides`` array of +-1 and scalars; :mod:`segcut.confidence` checks and allocates.
 """
 
 import numpy as np
 from numba import njit
 
-
-@njit(cache=True)
-def _flip(indptr, indices, weights, sides, gains, i):
-    """Flip ``i`` and update the gains ``x_j * sum_k w_jk x_k`` of ``i`` and its neighbours."""
-    xi = sides[i]
-    for k in range(indptr[i], indptr[i + 1]):
-        j = indices[k]
-        gains[j] -= 2.0 * weights[k] * xi * sides[j]
-    sides[i] = -xi
-    gains[i] = -gains[i]
+from .maxcut._kernels import flip_vertex as _flip
 
 
 @njit(cache=True)
