@@ -15,8 +15,9 @@ from typing import Sequence
 
 from .common import (EXIT_FAILED, EXIT_INTERRUPTED, EXIT_UNEXPECTED, EXIT_USAGE, CommandError,
                      UsageError, write_json)
-from .options import (add_config_options, config_overrides, finite_float, join_negative_values,
-                      non_negative_float, non_negative_int, positive_float, positive_int)
+from .options import (SPLIT_ONLY_OPTIONS, add_config_options, config_overrides, finite_float,
+                      join_negative_values, non_negative_float, non_negative_int,
+                      positive_float, positive_int)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -105,7 +106,7 @@ def _add_score_parser(sub) -> None:
                    help="TOML config used to build the graph (default: the built-in config)")
     p.add_argument("--seeds", metavar="FILE", default=None,
                    help="seed marker image, as for 'segcut split' (single image only)")
-    add_config_options(p)
+    add_config_options(p, skip=SPLIT_ONLY_OPTIONS)
     _add_json_option(p)
     p.add_argument("--csv", metavar="FILE", default=None, dest="csv_path",
                    help="also write one row per (image, mask) to this CSV file")
@@ -217,7 +218,7 @@ def _run_split(args) -> int:
                  config_path=args.config, overrides=config_overrides(args),
                  seeds=args.seeds, jobs=args.jobs, force=args.force, quiet=args.quiet,
                  as_json=args.json, scheduler=args.scheduler, dask_local=args.dask_local,
-                 report=not args.no_report)
+                 report=not args.no_report, confidence_maps=bool(args.confidence))
 
 
 def _add_report_parser(sub) -> None:

@@ -129,6 +129,9 @@ class ConfigOption:
     metavar : str
     help : str or callable
         The help text, or a function giving it (for lists of registered names).
+    flag : bool
+        An on/off switch taking no value: given, it sets the field to True (``type``
+        and ``metavar`` are then unused).
     """
 
     flags: tuple
@@ -136,6 +139,7 @@ class ConfigOption:
     type: Callable
     metavar: str
     help: object
+    flag: bool = False
 
     @property
     def dest(self) -> str:
@@ -163,13 +167,26 @@ CONFIG_OPTIONS = (
     ConfigOption(("--seed",), "seed", non_negative_int, "N",
                  "run seed (default: the config's, 0); each image's seed derives from it and "
                  "the image file's content"),
+    ConfigOption(("--confidence",), "confidence", bool, "",
+                 "measure how sure each split is (on even without this option, unless the "
+                 "config turns it off) and also write each image's confidence map to "
+                 "confidence/ beside the masks, named as its mask: 8-bit gray, 255 = certain, "
+                 "128 = either side costs the same (TIFF for 3-D stacks)", flag=True),
 )
+
+#: Options of :data:`CONFIG_OPTIONS` that only ``segcut split`` takes (they also change
+#: what a run writes).
+SPLIT_ONLY_OPTIONS = ("--confidence",)
 
 
 def add_config_options(parser, *, skip=()) -> None:
     """Add the flags of :data:`CONFIG_OPTIONS` (but those named in ``skip``) to ``parser``."""
     for option in CONFIG_OPTIONS:
         if option.flags[0] in skip:
+            continue
+        if option.flag:
+            parser.add_argument(*option.flags, dest=option.dest, action="store_true",
+                                default=None, help=option.help_text())
             continue
         parser.add_argument(*option.flags, dest=option.dest, type=option.type, default=None,
                             metavar=option.metavar, help=option.help_text())
@@ -207,7 +224,8 @@ def guard_extremes(config, *, warn=None):
 def join_negative_values(argv: list) -> list:
     """``--box -5,0,50,50`` as ``--box=-5,0,50,50``, so the value is not taken for an option
     and the box check can say what is wrong with it."""
-    takes_value = {flag for option in CONFIG_OPTIONS for flag in option.flags}
+    takes_value = {flag for option in CONFIG_OPTIONS if not option.flag
+                   for flag in option.flags}
     out, k = [], 0
     while k < len(argv):
         arg = argv[k]

@@ -9,7 +9,10 @@ The run folder does not store where its inputs were, only their names relative t
 the folder they were found in and a SHA-256 of their bytes. The image is looked for
 under that name beside the run folder, in the run folder's parent and in the current
 folder, and used only when its hash matches the record; otherwise the run's overlay
-(the image with the mask's outline) stands in for it.
+(the image with the mask shaded and outlined) stands in for it, cut to the mask's size
+(overlays carry a legend strip below the picture). The overlay of a 3-D stack shows
+three of its planes side by side, which cannot line up with the mask: such a stack is
+opened with its mask only.
 """
 
 from __future__ import annotations
@@ -24,7 +27,8 @@ from segcut.batch import hash_file, load_records
 
 from ._inputs import one_line
 
-__all__ = ["find_input_image", "get_run_reader", "read_run_folder", "write_mask_layer"]
+__all__ = ["find_input_image", "get_run_reader", "overlay_picture", "read_run_folder",
+           "write_mask_layer"]
 
 RECORDS_NAME = "records.jsonl"
 RUN_CONFIG_NAME = "run.toml"
@@ -69,18 +73,46 @@ def _stem(name: str) -> str:
     return f"{head}/{base}" if head else base
 
 
-def _image_layer(run_folder: Path, record: dict, stem: str, metadata: dict, visible: bool):
+def overlay_picture(overlay, mask_shape) -> np.ndarray | None:
+    """The picture part of an overlay, cut to the mask's ``(M, N)`` (None when it cannot be).
+
+    :func:`segcut.drawing.write_overlay` puts a legend strip below the picture and may
+    pad it on the right, so the picture is the top left ``M x N`` block.
+
+    Examples
+    --------
+    >>> overlay = np.zeros((6 + 16, 40, 3), np.uint8)  # a 6 x 4 picture with its legend
+    >>> overlay_picture(overlay, (6, 4)).shape
+    (6, 4, 3)
+    >>> overlay_picture(overlay, (3, 6, 4)) is None  # a stack's overlay shows three planes
+    True
+    """
+    if len(mask_shape) != 2:
+        return None
+    height, width = mask_shape
+    if overlay.shape[0] < height or overlay.shape[1] < width:
+        return None
+    return np.ascontiguousarray(overlay[:height, :width])
+
+
+def _image_layer(run_folder: Path, record: dict, stem: str, metadata: dict, visible: bool,
+                 mask_shape: tuple):
     source = find_input_image(run_folder, record)
     name, found = stem, {"source": str(source)}
-    if source is None:
+    if source is not None:
+        image = segcut.read_image(source)
+        data, rgb = image.array, image.channel_axis is not None
+    else:
         overlay = record.get("overlay")
         if not overlay:
             return None
-        source, name, found = run_folder / overlay, f"{stem} overlay", {}
-    image = segcut.read_image(source)
-    kwargs = {"name": name, "rgb": image.channel_axis is not None, "visible": visible,
+        data = overlay_picture(segcut.read_image(run_folder / overlay).array, mask_shape)
+        if data is None:
+            return None
+        name, found, rgb = f"{stem} overlay", {"source": str(run_folder / overlay)}, True
+    kwargs = {"name": name, "rgb": rgb, "visible": visible,
               "metadata": {METADATA_KEY: {**metadata, "kind": "run image", **found}}}
-    return (image.array, kwargs, "image")
+    return (data, kwargs, "image")
 
 
 def _record_layers(run_folder: Path, record: dict, config_text, visible: bool) -> list:
@@ -88,7 +120,7 @@ def _record_layers(run_folder: Path, record: dict, config_text, visible: bool) -
     metadata = {"record": record, "run_folder": str(run_folder), "config": config_text}
     mask = segcut.read_mask(run_folder / record["mask"])
     layers = []
-    image = _image_layer(run_folder, record, stem, metadata, visible)
+    image = _image_layer(run_folder, record, stem, metadata, visible, mask.shape)
     if image is not None:
         layers.append(image)
     layers.append((mask.astype(np.uint8),

@@ -15,7 +15,7 @@ import napari.layers
 import numpy as np
 from napari.qt.threading import thread_worker
 from napari.utils.notifications import show_error, show_info
-from qtpy.QtCore import Qt
+from qtpy.QtCore import Qt, Signal
 from qtpy.QtWidgets import (
     QCheckBox,
     QComboBox,
@@ -36,6 +36,7 @@ from qtpy.QtWidgets import (
 )
 
 import segcut
+from segcut.pipeline import STAGES
 
 from ._inputs import (
     PRIORS,
@@ -60,6 +61,9 @@ SIDE_RULES = {
     "no_contrast": "no contrast (empty mask)",
 }
 
+#: The stages of a split, in order, as :func:`segcut.split` announces them.
+SPLIT_STAGES = STAGES
+
 SCORE_COLUMNS = ("rank", "layer", "cut value", "gap", "agreement", "foreground")
 
 
@@ -73,11 +77,14 @@ def format_share(value, digits: int = 3) -> str:
     return "–" if value is None else f"{100.0 * float(value):.{digits}g}%"
 
 
-def _split_job(array, config, seeds, channel_axis, rng):
-    """Run in the worker thread: ("ok", result) or ("error", one-line message)."""
+def _split_job(array, config, seeds, channel_axis, rng, progress=None):
+    """Run in the worker thread: ("ok", result) or ("error", one-line message).
+
+    ``progress`` is handed to :func:`segcut.split` (told each stage as it starts).
+    """
     try:
         return ("ok", segcut.split(array, config, seeds=seeds, channel_axis=channel_axis,
-                                   rng=rng))
+                                   rng=rng, progress=progress))
     except Exception as exc:  # noqa: BLE001 - every failure becomes one line in the viewer
         return ("error", one_line(exc))
 
@@ -107,7 +114,14 @@ class SplitWidget(QWidget):
         The latest scoring.
     busy : bool
         True while a split or a scoring runs.
+    stages_seen : list of str
+        The stages of the latest split, as :func:`segcut.split` announced them (the
+        progress bar shows each one while it runs).
     """
+
+    #: Emitted from the worker thread with each stage of a split; Qt delivers it to the
+    #: panel's (main) thread, which updates the progress bar.
+    stage_reached = Signal(str)
 
     def __init__(self, napari_viewer):
         super().__init__()
@@ -116,6 +130,8 @@ class SplitWidget(QWidget):
         self.last_score = None
         self.busy = False
         self.worker = None
+        self.stages_seen = []
+        self.stage_reached.connect(self._show_stage)
         self.base_config = segcut.SplitConfig()
         layout = QVBoxLayout(self)
         layout.addWidget(self._input_group())
@@ -367,9 +383,22 @@ class SplitWidget(QWidget):
         except (ValueError, TypeError, OSError, segcut.SegcutError) as exc:
             show_error(f"segcut: {one_line(exc)}")
             return None
-        return self._start(_split_job, (pixels.array, config, seeds, pixels.channel_axis, rng),
+        self.stages_seen = []
+        self.progress.setRange(0, len(SPLIT_STAGES))
+        self.progress.setValue(0)
+        self.progress.setFormat("starting")
+        self.progress.setTextVisible(True)
+        return self._start(_split_job, (pixels.array, config, seeds, pixels.channel_axis, rng,
+                                        self.stage_reached.emit),
                            lambda outcome: self._show_split(outcome, image_layer, config),
                            "segcut: splitting")
+
+    def _show_stage(self, stage: str) -> None:
+        """Show the stage a split has reached (in the panel's thread)."""
+        self.stages_seen.append(stage)
+        done = SPLIT_STAGES.index(stage) if stage in SPLIT_STAGES else 0
+        self.progress.setValue(done)
+        self.progress.setFormat(f"{stage} ({done + 1} of {len(SPLIT_STAGES)})")
 
     def _show_split(self, outcome, image_layer, config) -> None:
         status, payload = outcome
@@ -413,6 +442,8 @@ class SplitWidget(QWidget):
         except (ValueError, TypeError, KeyError, OSError, segcut.SegcutError) as exc:
             show_error(f"segcut: {one_line(exc)}")
             return None
+        self.progress.setRange(0, 0)  # busy: scoring announces no stages
+        self.progress.setTextVisible(False)
         return self._start(_score_job,
                            (pixels.array, masks, config, seeds, pixels.channel_axis, rng),
                            lambda outcome: self._show_score(outcome, image_layer),

@@ -52,6 +52,14 @@ from .superpixels import oversegment
 __all__ = ["ImageGraph", "SplitResult", "build_image_graph", "mask_to_sides", "split",
            "ORIENTATIONS", "CANONICAL_TRANSFORMS", "apply_transform", "canonical_transform"]
 
+#: The stages :func:`split` announces to its ``progress`` callable, in order.
+STAGES = ("prepare", "superpixels", "appearance", "solve", "refine", "confidence")
+
+
+def _no_progress(stage: str) -> None:
+    pass
+
+
 #: What may decide which side is foreground (``SplitResult.orientation``).
 ORIENTATIONS = {
     "terminal": "priors or seeds: the terminal vertex's side is foreground",
@@ -385,14 +393,17 @@ def _no_contrast_graph(caller_spatial, warnings, seconds):
                       hypothesis="none")
 
 
-def _build(image, config, seeds, channel_axis, rng):
+def _build(image, config, seeds, channel_axis, rng, progress=None):
     """The stages of the graph: prepare, superpixels, edges, priors, appearance, assembly."""
+    progress = _no_progress if progress is None else progress
     seconds = {}
+    progress("prepare")
     prepared, warnings, caller_spatial = _prepare_stage(image, config, seeds, channel_axis,
                                                         seconds)
     if prepared is None:
         return _no_contrast_graph(caller_spatial, warnings, seconds)
     config = prepared.config
+    progress("superpixels")
     labels, regions, adjacency = _region_stage(prepared.features, config, seconds)
     t0 = time.perf_counter()
     rows, cols, pair_w, threshold = _pair_stage(regions, adjacency, config)
@@ -406,6 +417,7 @@ def _build(image, config, seeds, channel_axis, rng):
         model_strength=config.model_strength, use_models=config.colour_model,
         with_terminal=informed or config.colour_model, oriented=informed, frame=regions.frame)
     generator = np.random.default_rng(rng)
+    progress("appearance")
     fg_w, bg_w, region_fg, hypothesis, rule, disagreement = _appearance_stage(
         problem, labels, regions, adjacency, prepared.features, priors, config, generator)
     u = problem.evidence(fg_w, bg_w) if problem.with_terminal else np.zeros(regions.n_regions)
@@ -543,7 +555,7 @@ def _no_contrast_result(ig, seconds, warnings, seed):
 
 
 def split(image, config: SplitConfig | None = None, *, seeds=None,
-          channel_axis: int | None = -1, rng=None) -> SplitResult:
+          channel_axis: int | None = -1, rng=None, progress=None) -> SplitResult:
     """Split an image into foreground and background as a certified max-cut.
 
     Parameters
@@ -560,6 +572,8 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     rng : None, int or numpy.random.Generator
         Seed for everything random; by default ``config.seed``. The same image,
         config and seed give identical masks.
+    progress : callable, optional
+        Called with the name of each stage as it starts (:data:`STAGES`).
 
     Returns
     -------
@@ -634,17 +648,20 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
         raise TypeError(f"config must be a SplitConfig; got {type(config).__name__}")
     seed = config.seed if rng is None else rng
     generator = np.random.default_rng(seed)
-    ig = _build(image, config, seeds, channel_axis, generator)
+    progress = _no_progress if progress is None else progress
+    ig = _build(image, config, seeds, channel_axis, generator, progress)
     seconds = dict(ig.seconds)
     warnings = list(ig.warnings)
     if ig.orientation == "no_contrast":
         blank = _no_contrast_result(ig, seconds, warnings, seed)  # one side: nothing to doubt
         return replace(blank, uncertain_level=config.uncertain_level,
                        confidence=np.ones(blank.mask.shape) if config.confidence else None)
+    progress("solve")
     t0 = time.perf_counter()
     method, sides, value_before, bound = _solve(ig, config, generator)
     seconds["solve"] = time.perf_counter() - t0
 
+    progress("refine")
     t0 = time.perf_counter()
     mask = ig.paint(sides)
     if ig.terminal is None and border_rule(ig.region_foreground(sides),
@@ -659,6 +676,7 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     seconds["cleanup"] = time.perf_counter() - t0
     confidence = None
     if config.confidence:
+        progress("confidence")
         t0 = time.perf_counter()
         confidence = split_confidence(ig, sides, margin=config.confidence_margin)
         seconds["confidence"] = time.perf_counter() - t0

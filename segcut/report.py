@@ -7,10 +7,11 @@ two distribution plots are inline SVG drawn here. The page has
 
 - the run's configuration (prior, box, method, ...) and a link to its ``run.toml``;
 - a table with one row per image: a thumbnail (click it to see the full overlay
-  enlarged), then the columns of :data:`segcut.columns.OUTPUT_COLUMNS` with the flags
-  after the status, and the warnings or error. Clicking a column heading sorts by it
-  (again: the other way round); a text box, a status choice and a "flagged only"
-  switch filter the rows;
+  enlarged; with the run's confidence maps, a small one of the map beside it), then
+  the columns of :data:`segcut.columns.OUTPUT_COLUMNS` with the flags after the
+  status, and the warnings or error. With confidence measured, the rows start most
+  uncertain first. Clicking a column heading sorts by it (again: the other way
+  round); a text box, a status choice and a "flagged only" switch filter the rows;
 - flags for splits that deserve a look (:func:`flag_row`), each explained below the
   table (:data:`FLAG_MEANINGS`), with a legend of the overlay's colours;
 - histograms of the certified gap and of the foreground fraction.
@@ -56,7 +57,10 @@ FLAG_MEANINGS = {
     "refinement changed much": "the pixel-level boundary refinement moved more than "
                                "{max_refine_change:.0%} of the pixels: the superpixels fitted "
                                "the object poorly",
-    "uncertain": "more than {max_uncertain:.0%} of the pixels are uncertain",
+    "uncertain": "more than {max_uncertain:.0%} of the pixels are uncertain (confidence below "
+                 "the run's uncertain_level): another split costs the graph almost nothing "
+                 "there; the most uncertain splits are the likeliest to be wrong, so review "
+                 "them first",
     "large gap": "the certified gap is above {max_gap:.0%}: a better cut of this graph may exist",
     "no bound": "the method gave no certified upper bound",
     "warnings": "reading or splitting the input left notes (see the last column)",
@@ -247,6 +251,9 @@ th { position:sticky; top:0; background:#e9edf2; cursor:pointer; user-select:non
 th[data-dir=asc]::after { content:" \\25B2"; } th[data-dir=desc]::after { content:" \\25BC"; }
 td.num { text-align:right; font-variant-numeric:tabular-nums; }
 td.thumb img { display:block; max-width:240px; max-height:240px; cursor:zoom-in; }
+td.thumb { white-space:nowrap; } td.thumb a { display:inline-block; vertical-align:top; }
+td.thumb img.confidence { max-width:96px; max-height:96px; margin-left:4px;
+                          border:1px solid var(--line); }
 .settings dl { display:flex; flex-wrap:wrap; gap:6px 22px; margin:4px 0; }
 .settings dt { color:var(--muted); font-size:12px; } .settings dd { margin:0; font-weight:600; }
 h2 { font-size:15px; margin:10px 0 4px; }
@@ -398,16 +405,40 @@ def _shown_columns(rows: Sequence[dict]) -> list:
             and (not c.optional or any(r.get(c.key) is not None for r in rows))]
 
 
+def _zoom_link(thumb: bytes, link: str | None, alt: str, css: str, title: str) -> str:
+    mime = "image/jpeg" if thumb[:2] == b"\xff\xd8" else "image/png"
+    src = f"data:{mime};base64," + base64.b64encode(thumb).decode("ascii")
+    img = f'<img class="{css}" src="{src}" alt="{html.escape(alt)}">'
+    return (f'<a class="zoom" href="{html.escape(link or src)}" '
+            f'title="{html.escape(title)}">{img}</a>')
+
+
 def _thumbnail_cell(row: dict, name: str) -> str:
     thumb = row.get("thumbnail")
     if not thumb:
         return '<td class="thumb"><span class="none">no overlay</span></td>'
-    mime = "image/jpeg" if thumb[:2] == b"\xff\xd8" else "image/png"
-    src = f"data:{mime};base64," + base64.b64encode(thumb).decode("ascii")
-    img = f'<img src="{src}" alt="overlay of {html.escape(name)}">'
-    link = row.get("overlay") or src
-    return (f'<td class="thumb"><a class="zoom" href="{html.escape(link)}" '
-            f'title="click to enlarge">{img}</a></td>')
+    parts = [_zoom_link(thumb, row.get("overlay"), f"overlay of {name}", "overlay",
+                        "click to enlarge")]
+    confidence = row.get("confidence_thumbnail")
+    if confidence:
+        parts.append(_zoom_link(confidence, row.get("confidence"), f"confidence map of {name}",
+                                "confidence", "confidence map (dark: uncertain); click to "
+                                "enlarge"))
+    return f'<td class="thumb">{"".join(parts)}</td>'
+
+
+def _review_order(rows: Sequence[dict]) -> list:
+    """Rows with the most uncertain splits first (as sorting by that column, descending:
+    rows without a value last), when the run measured confidence; else as given."""
+    def key(row):
+        value = row.get("uncertain_fraction")
+        if not isinstance(value, (int, float)) or not math.isfinite(value):
+            return (1, 0.0)
+        return (0, -float(value))
+
+    if not any(isinstance(r.get("uncertain_fraction"), (int, float)) for r in rows):
+        return list(rows)
+    return sorted(rows, key=key)  # stable: ties keep their order (by input)
 
 
 def _table_row(row: dict, columns: list, flags: list) -> str:
@@ -438,15 +469,16 @@ def _table_row(row: dict, columns: list, flags: list) -> str:
             + "".join(cells) + "</tr>")
 
 
-def _heads(columns: list) -> str:
+def _heads(columns: list, sorted_by: str | None = None) -> str:
     heads = [("thumbnail", "overlay", "none", "click a picture to enlarge it")]
     for c in columns:
         heads.append((c.key, c.heading, "num" if c.kind == "num" else "text", c.meaning))
         if c.key == "status":
             heads.append(("flags", "flags", "text", "splits that deserve a look (see below)"))
     heads.append(("notes", "warnings / error", "text", ""))
-    return "".join(f'<th data-key="{key}" data-type="{kind}" title="{html.escape(meaning)}">'
-                   f'{html.escape(label)}</th>' for key, label, kind, meaning in heads)
+    return "".join(f'<th data-key="{key}" data-type="{kind}" title="{html.escape(meaning)}"'
+                   + (' data-dir="desc"' if key == sorted_by else "")
+                   + f'>{html.escape(label)}</th>' for key, label, kind, meaning in heads)
 
 
 def _settings_section(settings: dict | None, config_link: str | None) -> str:
@@ -460,7 +492,7 @@ def _settings_section(settings: dict | None, config_link: str | None) -> str:
     return f'<section class="settings"><h2>Configuration</h2><dl>{items}</dl>{link}</section>'
 
 
-def _flags_section(rules: dict, counts: dict) -> str:
+def _flags_section(rules: dict, counts: dict, confidence_maps: bool = False) -> str:
     items = "".join(
         f'<li><span class="flag">{html.escape(flag)}</span> '
         f"{html.escape(meaning.format(**rules))} ({counts.get(flag, 0)})</li>"
@@ -468,7 +500,10 @@ def _flags_section(rules: dict, counts: dict) -> str:
     return (f'<section class="flags"><h2>What the flags mean</h2><ul>{items}</ul>'
             f'<p class="legend"><span class="swatch fg"></span> foreground (shaded, '
             f'outlined) <span class="swatch bg"></span> background (as in the image)</p>'
-            f"</section>")
+            + ('<p class="legend">The small gray picture beside an overlay is the confidence '
+               'map: white where the side of a pixel is certain, darker where it is not '
+               '(mid-gray: either side costs the same).</p>' if confidence_maps else "")
+            + "</section>")
 
 
 def _plural(n: int, word: str) -> str:
@@ -487,7 +522,10 @@ def render_report(rows: Sequence[dict], *, title: str = "segcut run",
         (``input``, ``status``, ``foreground_fraction``, ``cut_value``, ...;
         ``warnings`` a list of str, ``error`` str or None), and optionally
         ``thumbnail`` (PNG or JPEG bytes) and ``overlay`` (a link, relative to the
-        page). Optional columns without a value in any row are left out.
+        page), ``confidence_thumbnail`` and ``confidence`` (the same for the
+        confidence map, shown small beside the overlay). Optional columns without a
+        value in any row are left out. When some row has an ``uncertain_fraction``,
+        the rows come most uncertain first (as that column sorted descending).
     title : str
         Shown as the page heading.
     flag_options : dict, optional
@@ -513,6 +551,8 @@ def render_report(rows: Sequence[dict], *, title: str = "segcut run",
     flag_options = dict(flag_options or {})
     rules = {**FLAG_RULES, **flag_options}
     columns = _shown_columns(rows)
+    rows = _review_order(rows)
+    by_uncertain = any(c.key == "uncertain_fraction" for c in columns)
     body_rows, counts = [], {}
     for row in rows:
         flags = flag_row(row, **flag_options)
@@ -528,6 +568,8 @@ def render_report(rows: Sequence[dict], *, title: str = "segcut run",
                             title="foreground fraction")
     summary = (f"{_plural(len(rows), 'image')}: {len(rows) - n_failed} split, {n_failed} failed, "
                f"{n_flagged} flagged (see what the flags mean below the table)")
+    if by_uncertain:
+        summary += "; the most uncertain splits come first"
     return "\n".join([
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
@@ -544,10 +586,11 @@ def render_report(rows: Sequence[dict], *, title: str = "segcut run",
         '<option value="ok">ok</option><option value="failed">failed</option></select></label>'
         '<label><input type="checkbox" id="filter-flagged"> flagged only</label>'
         '<span id="shown"></span></section>',
-        f'<table id="results"><thead><tr>{_heads(columns)}</tr></thead><tbody>',
+        f'<table id="results"><thead><tr>'
+        f'{_heads(columns, "uncertain_fraction" if by_uncertain else None)}</tr></thead><tbody>',
         *body_rows,
         "</tbody></table>",
-        _flags_section(rules, counts),
+        _flags_section(rules, counts, any(r.get("confidence_thumbnail") for r in rows)),
         '<div id="lightbox" hidden><img alt="enlarged overlay"><p>click or press Escape to '
         'close</p></div>',
         '<pre id="selftest" hidden></pre>',

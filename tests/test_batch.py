@@ -12,6 +12,7 @@ from __future__ import annotations
 import csv
 import json
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -556,3 +557,97 @@ def test_bad_arguments_are_refused_before_any_work(tmp_path, scenes):
     with pytest.raises(InputError, match="exists and is not a folder"):
         run_batch([folder], tmp_path / "file", SplitConfig())
     assert not (tmp_path / "o").exists()
+
+
+# --- confidence maps ------------------------------------------------------------------------------
+
+def direct_confidence(path: Path, seed: int) -> np.ndarray:
+    """The confidence map of one file from segcut.split itself, as 8-bit gray levels."""
+    from segcut import io
+    from segcut.confidence import confidence_to_uint8
+    from segcut.pipeline import split
+
+    data = io.read_image(path)
+    return confidence_to_uint8(split(data.array, SplitConfig(), channel_axis=data.channel_axis,
+                                     rng=seed).confidence)
+
+
+def test_confidence_maps_are_named_as_the_masks_and_written_beside_them(tmp_path):
+    src = tmp_path / "in"
+    write_scenes(src, ["a.png", "sub/a.png", "b.png"])
+    image, _ = scene(5)
+    Image.fromarray(image).save(src / "a.jpg", quality=95)  # same stem as a.png
+    out = tmp_path / "out"
+    summary = run_batch([src], out, SplitConfig(confidence=False), jobs=1,
+                        confidence_maps=True)
+    assert (summary.done, summary.failed) == (4, 0)
+    assert load_config_hash(out) == str(SplitConfig().config_hash())  # confidence turned on
+    records = load_records(out)
+    for name, record in records.items():
+        # the same collision-free name as the mask, in confidence/ instead of masks/
+        assert record["confidence"] == "confidence/" + record["mask"].split("/", 1)[1], name
+        written = np.asarray(Image.open(out / record["confidence"]))
+        assert written.dtype == np.uint8 and written.shape == (SIZE, SIZE)
+        # Reference: segcut.split on the same file with the record's seed, outside the batch.
+        assert np.array_equal(written, direct_confidence(src / name, record["seed"]))
+        # c < 0.9 exactly when round(255 c) < 230 (255 * 0.9 = 229.5; common knowledge)
+        assert record["uncertain_fraction"] == pytest.approx(np.mean(written < 230), abs=1e-6)
+    assert len({r["confidence"] for r in records.values()}) == 4
+    with open(out / "summary.csv", newline="", encoding="utf-8") as fh:
+        rows = {row["input"]: row for row in csv.DictReader(fh)}
+    for name, record in records.items():
+        assert float(rows[name]["uncertain_fraction"]) == record["uncertain_fraction"]
+    page = (out / "report.html").read_text(encoding="utf-8")
+    assert page.count('<img class="confidence"') == 4
+    # the rows come most uncertain first
+    order = re.findall(r'<tr data-input="([^"]+)"', page)
+    assert order == sorted(records, key=lambda k: -records[k]["uncertain_fraction"])
+
+
+def load_config_hash(out: Path) -> str:
+    from segcut.config import load_config
+
+    return str(load_config(out / "run.toml").config_hash())
+
+
+def test_resume_with_confidence_maps_needs_the_map(tmp_path):
+    src = tmp_path / "in"
+    write_scenes(src, ["a.png", "b.png"])
+    out = tmp_path / "out"
+    run_batch([src], out, SplitConfig(), jobs=1, report=False)
+    assert "confidence" not in load_records(out)["a.png"]
+    assert not (out / "confidence").exists()
+    # the same config, now with maps: none exists yet, so both images are done again
+    again = run_batch([src], out, SplitConfig(), jobs=1, report=False, confidence_maps=True)
+    assert (again.resumed, again.done) == (0, 2)
+    assert (out / "confidence" / "a.png").is_file() and (out / "confidence" / "b.png").is_file()
+    assert run_batch([src], out, SplitConfig(), jobs=1, report=False,
+                     confidence_maps=True).resumed == 2
+    (out / "confidence" / "b.png").unlink()
+    redo = run_batch([src], out, SplitConfig(), jobs=1, report=False, confidence_maps=True)
+    assert (redo.resumed, redo.done) == (1, 2)
+    assert (out / "confidence" / "b.png").is_file()
+    # without the option a finished image needs no map
+    (out / "confidence" / "b.png").unlink()
+    assert run_batch([src], out, SplitConfig(), jobs=1, report=False).resumed == 2
+
+
+def test_confidence_map_of_a_stack_is_a_tiff(tmp_path):
+    import tifffile
+
+    rng = np.random.default_rng(3)
+    _, yy, xx = np.mgrid[0:4, 0:64, 0:64]
+    ball = (yy - 32) ** 2 + (xx - 30) ** 2 < 18 ** 2
+    volume = np.clip(np.where(ball, 0.8, 0.2) + rng.normal(0, 0.03, ball.shape), 0, 1)
+    src = tmp_path / "in"
+    src.mkdir()
+    tifffile.imwrite(src / "stack.tif", (volume * 255).astype(np.uint8), photometric="minisblack")
+    out = tmp_path / "out"
+    assert run_batch([src], out, SplitConfig(), jobs=1, report=False,
+                     confidence_maps=True).done == 1
+    record = load_records(out)["stack.tif"]
+    assert record["confidence"] == "confidence/stack.tif"
+    # Reference: tifffile reads the map back; segcut.split gives the same map directly.
+    written = tifffile.imread(out / "confidence" / "stack.tif")
+    assert written.shape == (4, 64, 64) and written.dtype == np.uint8
+    assert np.array_equal(written, direct_confidence(src / "stack.tif", record["seed"]))

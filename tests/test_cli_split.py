@@ -277,8 +277,45 @@ def test_a_single_image_reports_its_stages(inputs, tmp_path):
     run_batch([inputs / "one.png"], tmp_path / "out", SplitConfig(), jobs=1, report=False,
               progress=seen.append)
     stages = [p.stage for p in seen if p.working == "one.png" and p.stage]
-    assert stages == ["reading", "splitting", "writing"]
+    from segcut.pipeline import STAGES
+
+    # the stages of segcut.split, as it announces them (its progress argument)
+    assert stages == ["reading", "splitting", *[f"splitting: {s}" for s in STAGES], "writing"]
     assert seen[-1].stage is None and seen[-1].done == 1
+    line = ProgressPrinter(io.StringIO(), heartbeat=None).text(
+        next(p for p in seen if p.stage == "splitting: solve"))
+    assert "working on one.png (splitting: solve) for" in line
+
+
+def test_confidence_option_writes_the_maps_and_turns_confidence_on(inputs, tmp_path):
+    from segcut.confidence import confidence_to_uint8
+    from segcut.io import read_image
+    from segcut.pipeline import split
+
+    config = tmp_path / "off.toml"
+    config.write_text("[confidence]\nconfidence = false\n")
+    out = tmp_path / "out"
+    assert main(["split", str(inputs), "-o", str(out), "-j", "1", "-q", "--config",
+                 str(config), "--confidence"]) == 0
+    assert load_config(out / "run.toml").confidence is True  # the option overrides the file
+    records = load_records(out)
+    assert {k: r["confidence"] for k, r in records.items()} == {
+        "one.png": "confidence/one.png", "nested/two.png": "confidence/nested/two.png"}
+    # Reference: segcut.split on the same file with the record's seed.
+    data = read_image(inputs / "nested" / "two.png")
+    direct = split(data.array, SplitConfig(), channel_axis=data.channel_axis,
+                   rng=records["nested/two.png"]["seed"])
+    written = np.asarray(Image.open(out / "confidence" / "nested" / "two.png"))
+    assert np.array_equal(written, confidence_to_uint8(direct.confidence))
+    assert main(["split", str(inputs), "-o", str(out), "-j", "1", "--json", "--config",
+                 str(config), "--confidence"]) == 0
+    # without the option there are no maps, and score does not take it
+    plain = tmp_path / "plain"
+    assert main(["split", str(inputs / "one.png"), "-o", str(plain), "-j", "1", "-q"]) == 0
+    assert not (plain / "confidence").exists() and "confidence" not in load_records(plain)[
+        "one.png"]
+    assert main(["score", str(inputs / "one.png"), str(plain / "masks" / "one.png"),
+                 "--confidence"]) == 2
 
 
 def test_estimate_leaves_out_the_first_image():

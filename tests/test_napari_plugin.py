@@ -34,6 +34,8 @@ import segcut  # noqa: E402
 from scipy import ndimage as ndi  # noqa: E402
 from segcut import io as segcut_io  # noqa: E402
 from segcut.batch import hash_file, image_seed, load_records  # noqa: E402
+from segcut.drawing import overlay_image  # noqa: E402
+from segcut.pipeline import STAGES  # noqa: E402
 from segcut_cli.main import main as cli_main  # noqa: E402
 from segcut_napari import _widget  # noqa: E402
 from segcut_napari._inputs import box_from_shapes, make_config, points_seeds  # noqa: E402
@@ -100,6 +102,13 @@ def test_widget_split_equals_engine_and_reruns_replace(make_napari_viewer, qtbot
     assert float(widget.numbers["bound"].text()) == pytest.approx(expected.upper_bound, rel=1e-9)
     assert widget.numbers["side decided by"].text() == "priors or seeds"
     assert layer.metadata["segcut"]["record"]["value"] == expected.value
+    # The progress bar went through the stages segcut.split announces, in its order.
+    heard = []
+    segcut.split(image.array, make_config(prior="border", seed=3), channel_axis=None, rng=3,
+                 progress=heard.append)
+    assert widget.stages_seen == heard == list(STAGES)
+    assert widget.progress.value() == len(STAGES) - 1
+    assert widget.progress.format() == f"confidence ({len(STAGES)} of {len(STAGES)})"
     # A second run with another prior replaces the layer's data; no new layer appears.
     widget.prior_choice.setCurrentText("none")
     _run(qtbot, widget, widget.run_split)
@@ -281,9 +290,16 @@ def test_reader_round_trips_a_run_folder(make_napari_viewer, qtbot, tmp_path, er
     # Moved away from its inputs, the run folder still opens, with the overlays instead.
     moved = tmp_path / "elsewhere" / "run"
     shutil.copytree(run, moved)
+    ivy = segcut.read_image(inputs / "ivy_nir.tif")
     shutil.rmtree(inputs)
     layers = read_run_folder(str(moved))
     assert [kw["name"] for _, kw, _ in layers][:2] == ["ivy_nir overlay", "ivy_nir mask"]
+    # The overlay is cut to the mask's size (its legend strip left out) and lines up with it:
+    # reference, segcut.drawing.overlay_image of the image and mask without the legend.
+    (picture, kwargs, _), (mask, _, _) = layers[:2]
+    assert picture.shape == (*mask.shape, 3) and kwargs["rgb"] is True
+    np.testing.assert_array_equal(picture, overlay_image(ivy.array, mask != 0,
+                                                         channel_axis=ivy.channel_axis))
 
 
 def test_sample_data_are_the_demo_scans(make_napari_viewer):

@@ -294,3 +294,26 @@ def test_reported_value_is_the_cut_of_the_returned_mask(seed, prior, fill, min_s
     assert result.mask.dtype == bool and result.mask.shape == (60, 72)
     if result.upper_bound is not None:
         assert result.upper_bound >= result.value - 1e-9 * max(1.0, abs(result.upper_bound))
+
+
+def test_progress_names_each_stage_once_in_order_and_changes_nothing():
+    """``progress`` hears every stage as it starts, in the documented order, and the result
+    is bit for bit the one without it."""
+    from segcut.pipeline import STAGES
+
+    image = np.zeros((48, 48, 3))
+    image[12:36, 10:30] = (0.9, 0.3, 0.2)
+    heard = []
+    with_progress = split(image, rng=3, progress=heard.append)
+    assert heard == list(STAGES)
+    assert STAGES == ("prepare", "superpixels", "appearance", "solve", "refine", "confidence")
+    plain = split(image, rng=3)
+    assert np.array_equal(with_progress.mask, plain.mask)
+    assert with_progress.value == plain.value
+    assert np.array_equal(with_progress.confidence, plain.confidence)
+    heard.clear()
+    split(image, SplitConfig(confidence=False), rng=3, progress=heard.append)
+    assert heard == list(STAGES[:-1])  # no confidence measured, none announced
+    heard.clear()
+    split(np.full((20, 20), 0.4), progress=heard.append)  # no contrast: nothing past prepare
+    assert heard == ["prepare"]

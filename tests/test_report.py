@@ -209,7 +209,8 @@ def test_report_in_headless_chromium(tmp_path):
     assert result["svg_plots"] == 2
     columns = {"input": "input", "status": "status", "foreground_fraction": "foreground_fraction",
                "cut_value": "cut_value", "upper_bound": "upper_bound", "gap": "gap",
-               "n_superpixels": "n_superpixels", "seconds": "seconds"}
+               "n_superpixels": "n_superpixels", "seconds": "seconds",
+               "uncertain_fraction": "uncertain_fraction"}
     for key, column in columns.items():
         numeric = key not in ("input", "status")
         order = result["sorted"][key]
@@ -222,7 +223,36 @@ def test_report_in_headless_chromium(tmp_path):
         assert down_present == sorted(down_present, reverse=True), key
         assert sorted(order["asc"]) == sorted(rows)
     assert result["sorted"]["input"]["asc"] != result["sorted"]["input"]["desc"]
-    assert result["sorted"]["foreground_fraction"]["asc"] != result["initial"]  # rows moved
-    assert result["filter_visible"] == ["broken.png"]
+    # the page opens most uncertain first: as sorting that column descending does
+    uncertain = [_sort_key(rows[name]["uncertain_fraction"], True) for name in result["initial"]]
+    assert uncertain[:4] == sorted(uncertain[:4], reverse=True) and uncertain[4] is None
+    assert result["sorted"]["input"]["desc"] != result["initial"]  # rows moved
+    assert result["filter_visible"] == [result["initial"][0]]
     assert "broken.png" in result["flagged_visible"]
     assert result["lightbox_opened"] is True and result["lightbox_closed"] is True
+
+
+def test_rows_start_most_uncertain_first_with_the_confidence_map_beside_the_overlay():
+    rows = [_row("a.png", uncertain_fraction=0.1, thumbnail=_png(8, 8)),
+            _row("b.png", uncertain_fraction=0.5, thumbnail=_png(8, 8),
+                 confidence_thumbnail=_png(8, 8, (200, 200, 200)), confidence="confidence/b.png"),
+            _row("c.png", status="failed", error="c.png: empty file"),
+            _row("d.png", uncertain_fraction=0.3),
+            _row("e.png", uncertain_fraction=0.3)]
+    page = render_report(rows)
+    # as a descending sort on the column: largest first, ties in the given order, missing last
+    assert re.findall(r'<tr data-input="([^"]+)"', page) == [
+        "b.png", "d.png", "e.png", "a.png", "c.png"]
+    assert '<th data-key="uncertain_fraction" data-type="num"' in page
+    assert re.search(r'<th data-key="uncertain_fraction"[^>]*data-dir="desc"', page)
+    assert "the most uncertain splits come first" in page
+    assert page.count('<img class="confidence"') == 1
+    assert 'href="confidence/b.png"' in page
+    assert "is the confidence map" in page  # its legend
+    flagged = re.search(r'<tr data-input="b.png"[^>]*data-flagged="(\d)"', page)
+    assert flagged.group(1) == "1"  # 0.5 > max_uncertain 0.2
+    # without confidence measured the rows keep their order and nothing says otherwise
+    plain = render_report([_row("z.png"), _row("a.png")])
+    assert re.findall(r'<tr data-input="([^"]+)"', plain) == ["z.png", "a.png"]
+    assert "uncertain" not in plain.split("<table")[1].split("</table>")[0]
+    assert "data-dir=\"desc\"" not in plain and "is the confidence map" not in plain

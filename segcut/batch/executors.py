@@ -43,6 +43,7 @@ class Task:
     seeds_path: str | None
     seeds_hash: str | None
     base_seed: int
+    confidence: str | None = None  # where the confidence map goes (no suffix); None: not written
 
 
 def frame_fraction(mask) -> float:
@@ -89,11 +90,13 @@ def _no_stage(name: str) -> None:
 def process_task(task: Task, stage=_no_stage) -> dict:
     """Read, split and write one image; return its record. Never raises for bad input.
 
-    ``stage`` (in-process runs only) is called with ``"reading"``, ``"splitting"`` and
-    ``"writing"`` as the work moves on.
+    ``stage`` (in-process runs only) is called with ``"reading"``, ``"splitting"``, then
+    ``"splitting: <stage>"`` for each stage of :func:`segcut.split`
+    (:data:`segcut.pipeline.STAGES`), and ``"writing"`` as the work moves on.
     """
+    from ..confidence import confidence_to_uint8
     from ..drawing import write_overlay
-    from ..io import read_image, read_seeds, write_mask
+    from ..io import read_image, read_seeds, write_image, write_mask
     from ..pipeline import split
 
     started = time.perf_counter()
@@ -115,13 +118,19 @@ def process_task(task: Task, stage=_no_stage) -> dict:
             stage("splitting")
             result = split(image.array, task.config, seeds=seeds,
                            channel_axis=image.channel_axis,
-                           rng=image_seed(task.base_seed, input_hash))
+                           rng=image_seed(task.base_seed, input_hash),
+                           progress=lambda name: stage(f"splitting: {name}"))
             out = Path(task.out_dir)
-            mask_name = task.mask + (".tif" if image.is_stack else ".png")
+            suffix = ".tif" if image.is_stack else ".png"
+            mask_name = task.mask + suffix
             stage("writing")
             write_mask(result.mask, out / mask_name)
             write_overlay(image.array, result.mask, out / task.overlay,
                           channel_axis=image.channel_axis)
+            confidence_name = None
+            if task.confidence is not None and result.confidence is not None:
+                confidence_name = task.confidence + suffix
+                write_image(confidence_to_uint8(result.confidence), out / confidence_name)
         caught_messages = [one_line(w.message) for w in caught]
         record.update(json_ready(result.to_record()))
         record["status"] = "ok"
@@ -130,6 +139,8 @@ def process_task(task: Task, stage=_no_stage) -> dict:
         box_note = _box_warning(task.config, image.spatial_shape)
         caught_messages = list(image.warnings) + [box_note] * bool(box_note) + caught_messages
         record["overlay"] = task.overlay
+        if confidence_name is not None:
+            record["confidence"] = confidence_name
     except SegcutError as exc:
         record["status"] = "failed"
         record["error"] = str(exc) if exc.path else f"{task.path}: {exc}"

@@ -23,7 +23,7 @@ from ..errors import ConfigError, SegcutError
 from ..files import append_json_line, read_json_lines, write_bytes_atomic, write_json_lines
 
 __all__ = ["RECORDS_NAME", "SUMMARY_NAME", "RUN_CONFIG_NAME", "REPORT_NAME", "MASKS_DIR",
-           "OVERLAYS_DIR", "load_records", "compact_records", "append_record", "summary_rows",
+           "OVERLAYS_DIR", "CONFIDENCE_DIR", "load_records", "compact_records", "append_record", "summary_rows",
            "write_summary", "check_run_folder", "remove_stale_temporaries", "versions"]
 
 RECORDS_NAME = "records.jsonl"
@@ -32,6 +32,7 @@ RUN_CONFIG_NAME = "run.toml"
 REPORT_NAME = "report.html"
 MASKS_DIR = "masks"
 OVERLAYS_DIR = "overlays"
+CONFIDENCE_DIR = "confidence"
 
 
 def one_line(text) -> str:
@@ -95,7 +96,8 @@ _TEMP_NAME = re.compile(r"^\..*\.\d+-[0-9a-f]{8}\.tmp(\.[A-Za-z0-9]+)?$")
 
 def remove_stale_temporaries(out_dir: Path) -> None:
     """Delete temporary files a killed run left behind (they were never renamed into place)."""
-    folders = [(out_dir, False), (out_dir / MASKS_DIR, True), (out_dir / OVERLAYS_DIR, True)]
+    folders = [(out_dir, False), (out_dir / MASKS_DIR, True), (out_dir / OVERLAYS_DIR, True),
+               (out_dir / CONFIDENCE_DIR, True)]
     for folder, recursive in folders:
         if not folder.is_dir():
             continue

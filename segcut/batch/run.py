@@ -13,7 +13,7 @@ from typing import Callable, Iterable, Iterator, Sequence
 from ..errors import InputError
 from .executors import Task, run_dask, run_pool, run_serial
 from .inputs import InputListing, find_inputs, hash_file, index_seed_folder
-from .records import (MASKS_DIR, OVERLAYS_DIR, REPORT_NAME, RUN_CONFIG_NAME, append_record,
+from .records import (CONFIDENCE_DIR, MASKS_DIR, OVERLAYS_DIR, REPORT_NAME, RUN_CONFIG_NAME, append_record,
                       check_run_folder, compact_records, load_records, remove_stale_temporaries,
                       write_summary)
 
@@ -108,9 +108,13 @@ def write_report(out_dir, *, title: str | None = None,
         overlay = record.get("overlay")
         row["overlay"] = overlay
         row["mask"] = record.get("mask")
-        row["thumbnail"] = None
+        row["thumbnail"] = row["confidence_thumbnail"] = None
+        row["confidence"] = record.get("confidence")
         if overlay and record.get("status") == "ok":
             row["thumbnail"] = _thumbnail_jpeg(out_dir / overlay, thumbnail_size)
+            if row["confidence"]:
+                row["confidence_thumbnail"] = _thumbnail_jpeg(out_dir / row["confidence"],
+                                                              thumbnail_size // 3)
     has_toml = (out_dir / RUN_CONFIG_NAME).is_file()
     settings = _run_settings(out_dir) if has_toml else None
     if settings is not None:
@@ -275,12 +279,14 @@ def _seeds_of(item, seed_file, seed_index, seed_hashes) -> tuple:
     return path, seed_hashes[path]
 
 
-def _finished_before(old, out_dir: Path, config_hash: str, seeds_hash, item) -> str | None:
-    """The input's hash when an earlier run finished it with the same settings, else None."""
+def _finished_before(old, out_dir: Path, config_hash: str, seeds_hash, item,
+                     confidence_maps: bool = False) -> str | None:
+    """The input's hash when an earlier run finished it with the same settings (and, with
+    ``confidence_maps``, wrote its confidence map), else None."""
+    wanted = ("mask", "overlay", "confidence") if confidence_maps else ("mask", "overlay")
     if (old is None or old.get("status") != "ok" or old.get("config_hash") != config_hash
             or old.get("seeds_hash") != seeds_hash
-            or not (out_dir / str(old.get("mask"))).is_file()
-            or not (out_dir / str(old.get("overlay"))).is_file()):
+            or not all(old.get(key) and (out_dir / str(old[key])).is_file() for key in wanted)):
         return None
     try:
         return hash_file(item.path)
@@ -289,7 +295,7 @@ def _finished_before(old, out_dir: Path, config_hash: str, seeds_hash, item) -> 
 
 
 def _plan(listing: InputListing, records: dict, out_dir: Path, config_hash: str, seeds,
-          force: bool) -> tuple[list, int]:
+          force: bool, confidence_maps: bool = False) -> tuple[list, int]:
     """The inputs to process ``(item, input hash or None, seed path, seed hash)``, and how
     many an earlier run finished already."""
     seed_file, seed_dir = _seed_source(seeds)
@@ -301,7 +307,7 @@ def _plan(listing: InputListing, records: dict, out_dir: Path, config_hash: str,
         input_hash = None
         if not force:
             input_hash = _finished_before(records.get(item.input), out_dir, config_hash,
-                                          seeds_hash, item)
+                                          seeds_hash, item, confidence_maps)
             if input_hash is not None and records[item.input].get("input_hash") == input_hash:
                 resumed += 1
                 continue
@@ -409,7 +415,7 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
               exclude: Sequence[str] = (), seeds=None, jobs: int | None = None,
               scheduler: str | None = None, dask_local: int | None = None, force: bool = False,
               report: bool = True, progress: Callable[[BatchProgress], None] | None = None,
-              ) -> BatchSummary:
+              confidence_maps: bool = False) -> BatchSummary:
     """Split every image under ``paths`` into ``out_dir``; resume what an earlier run left.
 
     Parameters
@@ -443,7 +449,13 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
         Write ``report.html`` at the end (also after Ctrl-C).
     progress : callable, optional
         Called with a :class:`BatchProgress` at the start, when an image is handed to
-        a worker and after each image.
+        a worker, as it moves through its stages (runs in this process) and after
+        each image.
+    confidence_maps : bool
+        Also write each image's confidence map (:func:`segcut.confidence.confidence_to_uint8`:
+        0-255, 255 = certain) to ``confidence/``, named as its mask (TIFF for 3-D
+        stacks), and name it in the record (``confidence``). Sets ``config.confidence``.
+        An image an earlier run finished counts as finished only if its map exists.
 
     Returns
     -------
@@ -464,6 +476,8 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
     """
     jobs = _check_arguments(jobs, scheduler, dask_local)
     _check_config_names(config)
+    if confidence_maps and not config.confidence:
+        config = config.replace(confidence=True)
     started = time.perf_counter()
     out_dir = Path(out_dir)
     if out_dir.exists() and not out_dir.is_dir():
@@ -480,7 +494,8 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
     check_run_folder(out_dir, config, config_hash, records, force=force)
     remove_stale_temporaries(out_dir)
     compact_records(out_dir, records)  # drops a torn last line before we append
-    todo, resumed = _plan(listing, records, out_dir, config_hash, seeds, force)
+    todo, resumed = _plan(listing, records, out_dir, config_hash, seeds, force,
+                          confidence_maps)
     workers = dask_local or (1 if scheduler is None and jobs == 1 else jobs)
     tally = _Tally(len(listing.items) + len(listing.missing), resumed, workers, progress)
     for missing in listing.missing:
@@ -496,7 +511,8 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
                 mask=f"{MASKS_DIR}/{item.output}", overlay=f"{OVERLAYS_DIR}/{item.output}.png",
                 config=config, config_hash=config_hash, input_hash=input_hash,
                 seeds_path=None if seeds_path is None else os.path.abspath(seeds_path),
-                seeds_hash=seeds_hash, base_seed=base_seed)
+                seeds_hash=seeds_hash, base_seed=base_seed,
+                confidence=f"{CONFIDENCE_DIR}/{item.output}" if confidence_maps else None)
 
     tally.report(None)
     results = _executor(tasks(), jobs=jobs, n_todo=len(todo), scheduler=scheduler,
