@@ -373,7 +373,12 @@ def _build(image, config, seeds, channel_axis, rng):
                                                         seconds)
     if prepared is None:
         return _no_contrast_graph(caller_spatial, warnings, seconds)
-    config = prepared.config
+    return _graph_stages(prepared, seconds, rng)[0]
+
+
+def _graph_stages(prepared, seconds, rng):
+    """Superpixels, edges, priors, appearance and assembly; returns (ImageGraph, regions)."""
+    config, warnings = prepared.config, prepared.warnings
     labels, regions, adjacency = _region_stage(prepared.features, config, seconds)
     t0 = time.perf_counter()
     rows, cols, pair_w, threshold = _pair_stage(regions, adjacency, config)
@@ -406,7 +411,7 @@ def _build(image, config, seeds, channel_axis, rng):
                       threshold=threshold, start=start, warnings=warnings, seconds=seconds,
                       canonical_transform=prepared.transform, hypothesis=hypothesis,
                       choice_rule=rule, hypothesis_disagreement=disagreement,
-                      pixel_context=context)
+                      pixel_context=context), regions
 
 
 def build_image_graph(image, config: SplitConfig | None = None, *, seeds=None,
@@ -494,6 +499,16 @@ def _refine_stage(ig: ImageGraph, mask, config):
     if ctx.transform != "identity":
         refined = np.ascontiguousarray(apply_transform(refined, ctx.transform, inverse=True))
     return refined, record
+
+
+def _large_stage(image, config, seeds, channel_axis, generator, seed):
+    """The large-image path (:mod:`segcut.large`) when the image needs it, else None."""
+    from .large import split_large, uses_large_path
+
+    if not uses_large_path(image, config, channel_axis):
+        return None
+    return split_large(image, config, seeds=seeds, channel_axis=channel_axis,
+                       generator=generator, seed=seed)
 
 
 def _clean(mask, config):
@@ -615,6 +630,9 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
         raise TypeError(f"config must be a SplitConfig; got {type(config).__name__}")
     seed = config.seed if rng is None else rng
     generator = np.random.default_rng(seed)
+    large = _large_stage(image, config, seeds, channel_axis, generator, seed)
+    if large is not None:
+        return large
     ig = _build(image, config, seeds, channel_axis, generator)
     seconds = dict(ig.seconds)
     warnings = list(ig.warnings)
