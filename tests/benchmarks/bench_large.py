@@ -85,6 +85,7 @@ def run_one(side, max_graph_pixels):
     mask = result.mask
     print(json.dumps({"side": side, "seconds": seconds, "peak_gib": peak / GIB,
                       "iou": iou_with_truth(mask), "graphs": result.graphs,
+                      "stages": result.seconds,
                       "mask": mask.tobytes().hex() if side <= 2048 else None}))
 
 
@@ -94,6 +95,12 @@ def measure(side, max_graph_pixels):
     out = subprocess.run([sys.executable, __file__, "--one", str(side), limit],
                          capture_output=True, text=True, check=True)
     return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def graph_seconds(stages):
+    """Seconds of the superpixel graph: reduced copy, superpixels, features, graph, solve."""
+    return sum(stages.get(k, 0.0) for k in ("reduce", "superpixels", "features", "graph",
+                                            "solve"))
 
 
 def side_of(mpix):
@@ -113,14 +120,16 @@ def main():
     print(f"512x512: {base['seconds']:.2f} s, peak {base['peak_gib']:.2f} GiB, "
           f"IoU {base['iou']:.3f}")
     print(f"{'Mpixel':>7} {'side':>6} {'seconds':>8} {'x 512²':>7} {'peak GiB':>9} "
-          f"{'IoU':>6} {'factor':>6} {'tiles':>6}")
+          f"{'IoU':>6} {'factor':>6} {'tiles':>6} {'graph s':>8} {'refine s':>9}")
     for mpix in args.sizes:
         side = side_of(mpix)
         r = measure(side, 3_000_000)
         factor = r["graphs"][0].get("reduction_factor", 1)
         tiles = r["graphs"][1].get("tiles", "-") if len(r["graphs"]) > 1 else "-"
         print(f"{mpix:>7g} {side:>6} {r['seconds']:>8.1f} {r['seconds'] / base['seconds']:>7.1f} "
-              f"{r['peak_gib']:>9.2f} {r['iou']:>6.3f} {factor:>6} {tiles:>6}", flush=True)
+              f"{r['peak_gib']:>9.2f} {r['iou']:>6.3f} {factor:>6} {tiles:>6} "
+              f"{graph_seconds(r['stages']):>8.1f} {r['stages'].get('refine', 0.0):>9.1f}",
+              flush=True)
     print("\nfull-resolution path against the large-image path (max_graph_pixels = pixels / 4)")
     print(f"{'Mpixel':>7} {'full IoU':>9} {'large IoU':>10} {'loss':>7} {'agree IoU':>10} "
           f"{'full s':>7} {'large s':>8} {'full GiB':>9} {'large GiB':>10}")
