@@ -147,3 +147,27 @@ def test_gray_and_float_images_take_the_path():
     assert result.graphs[0].get("reduction_factor") == 2
     assert _iou(result.mask, truth) >= 0.9
     assert _iou(result.mask, split(gray, FULL, channel_axis=None).mask) >= 0.95
+
+
+def test_large_tiffs_are_mapped_and_written_tiled(tmp_path, monkeypatch):
+    # reference writer and reader: tifffile itself (BigTIFF, tiles, contiguous strips)
+    import tifffile
+
+    from segcut import io
+
+    monkeypatch.setattr(io, "LAZY_PIXELS", 1000)
+    image, truth = _scene(7, shape=(96, 80))
+    tiled = tmp_path / "tiled.tif"
+    tifffile.imwrite(tiled, image, bigtiff=True, tile=(32, 32), compression="zlib",
+                     photometric="rgb")
+    plain = tmp_path / "plain.tif"
+    tifffile.imwrite(plain, image, photometric="rgb")
+    for path in (tiled, plain):
+        data = io.read_image(path)
+        assert np.array_equal(data.array, image)
+    assert not io.read_image(plain).array.flags.owndata  # a view of the file mapping
+    out = tmp_path / "mask.tif"
+    io.write_mask(truth, out)
+    with tifffile.TiffFile(out) as tif:
+        assert tif.pages[0].is_tiled
+        assert np.array_equal(tif.asarray() > 0, truth)
