@@ -111,7 +111,10 @@ class SplitResult:
         ``n_vertices``, ``value``, ``upper_bound`` and ``gap`` of that graph.
         ``value``, ``upper_bound`` and ``gap`` above are those of the superpixel
         graph (the final mask projected onto it); the refinement graph's certify
-        the pixel split inside its band.
+        the pixel split inside its band. On the large-image path
+        (:mod:`segcut.large`) the superpixel graph is that of the reduced copy
+        (with its ``reduction_factor``) and ``"refine"`` sums the tiles' graphs
+        (``n_vertices``, ``value``, ``upper_bound`` summed, ``tiles`` counted).
     confidence : float64 ndarray, spatial shape of the image, or None
         How sure the split is at every pixel, in [0, 1] (1 = certain, 0.5 = either
         side costs the same; see :mod:`segcut.confidence`); None when

@@ -74,7 +74,7 @@ worker processes is lowered so that that many copies of the largest image's esti
 fit in the memory budget: 80% of the memory available at the start, or
 ``memory_budget`` GiB (``segcut split --memory-budget GIB``). Images above
 ``max_graph_pixels`` take the large-image path (:mod:`segcut.large`), whose peak
-grows by about 24 bytes per pixel instead of about 160 (36 Mpixel RGB: about 1 GiB).
+grows by about 23 bytes per pixel instead of about 210 (36 Mpixel RGB: about 1 GiB).
 """
 
 from __future__ import annotations
