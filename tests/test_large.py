@@ -171,3 +171,19 @@ def test_large_tiffs_are_mapped_and_written_tiled(tmp_path, monkeypatch):
     with tifffile.TiffFile(out) as tif:
         assert tif.pages[0].is_tiled
         assert np.array_equal(tif.asarray() > 0, truth)
+
+
+def test_overlays_of_large_images_come_from_a_reduced_copy(tmp_path):
+    # reference: the reduced size is common arithmetic (ceil of the side over the factor)
+    from segcut.drawing import overlay_image, write_overlay
+    from segcut.io import read_image
+
+    image, truth = _scene(8, shape=(300, 260))
+    path = tmp_path / "o.png"
+    write_overlay(image, truth, path, legend=False, max_pixels=20000)
+    small = read_image(path).array
+    assert small.shape == (150, 130, 3)
+    full = overlay_image(image, truth)
+    # the reduced overlay is close to the full one sampled at block centres
+    sampled = full[::2, ::2].astype(int)
+    assert np.median(np.abs(small.astype(int) - sampled)) <= 25
