@@ -197,6 +197,9 @@ def _add_split_parser(sub) -> None:
     p.add_argument("--jobs", "-j", type=positive_int, default=None, metavar="N",
                    help="worker processes of the local pool (default: all cores); not with "
                         "--dask-local or --scheduler")
+    p.add_argument("--memory-budget", type=positive_float, default=None, metavar="GIB",
+                   help="memory the local workers may use together (default: 80%% of the "
+                        "available memory); --jobs is lowered to fit the largest image")
     p.add_argument("--force", action="store_true",
                    help="redo images finished by an earlier run, and take over a folder "
                         "holding another configuration's results (its records are emptied)")
@@ -218,7 +221,8 @@ def _run_split(args) -> int:
                  config_path=args.config, overrides=config_overrides(args),
                  seeds=args.seeds, jobs=args.jobs, force=args.force, quiet=args.quiet,
                  as_json=args.json, scheduler=args.scheduler, dask_local=args.dask_local,
-                 report=not args.no_report, confidence_maps=bool(args.confidence))
+                 report=not args.no_report, confidence_maps=bool(args.confidence),
+                 memory_budget=args.memory_budget)
 
 
 def _add_report_parser(sub) -> None:

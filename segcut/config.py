@@ -25,6 +25,7 @@ SECTIONS = {
     "n_superpixels": "superpixels",
     "compactness": "superpixels",
     "pixel_grid_max_pixels": "superpixels",
+    "max_graph_pixels": "superpixels",
     "sigma": "superpixels",
     "affinity": "affinity",
     "affinity_options": "affinity",
@@ -72,6 +73,13 @@ class SplitConfig:
     pixel_grid_max_pixels : int
         Images with at most this many pixels (voxels) use every pixel as a vertex
         (a 4-connected / 6-connected grid graph) instead of superpixels.
+    max_graph_pixels : int or None
+        2-D images with more pixels than this take the large-image path
+        (:mod:`segcut.large`): the superpixel graph is built and solved on an
+        area-averaged copy reduced by the smallest integer factor that brings it
+        to at most this many pixels, and the pixel refinement runs at full
+        resolution in tiles, only near the boundary, so memory stays bounded.
+        None: always the full-resolution path.
     sigma : float
         Gaussian smoothing (pixels) before SLIC, so pixel noise does not shatter the
         superpixels.
@@ -173,6 +181,7 @@ class SplitConfig:
     n_superpixels: int | None = None
     compactness: float = 20.0
     pixel_grid_max_pixels: int = 1024
+    max_graph_pixels: int | None = 3_000_000
     sigma: float = 1.0
     affinity: str = "colour"
     affinity_options: tuple = ()
@@ -379,6 +388,7 @@ def _validate(cfg: SplitConfig) -> None:
     number("n_superpixels", lo=1, integer=True, allow_none=True)
     number("compactness", lo=0, lo_open=True)
     number("pixel_grid_max_pixels", lo=0, integer=True)
+    number("max_graph_pixels", lo=4, integer=True, allow_none=True)
     number("sigma", lo=0)
     number("threshold_quantile", lo=0, hi=1, lo_open=True)
     if cfg.threshold_quantile >= 1:

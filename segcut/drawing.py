@@ -240,13 +240,62 @@ def overlay_image(image, mask, *, channel_axis: int | None = None,
     return _place([picture, _legend(picture.shape[1], _legend_height(picture.shape[1]))])
 
 
+#: 2-D overlays of images with more pixels are drawn from a reduced copy.
+OVERLAY_MAX_PIXELS = 4 * 2**20
+
+
+def reduced_for_display(image, mask, max_pixels: int, *, channel_axis: int | None = None):
+    """A 2-D image and its mask reduced by the smallest integer factor that brings them
+    to at most ``max_pixels`` pixels: the image area-averaged (rounded back to its
+    integer dtype), the mask by majority of each block (ties: foreground). Computed
+    in row chunks; images that already fit come back as they are.
+
+    Examples
+    --------
+    >>> image = np.arange(16, dtype=np.uint8).reshape(4, 4)
+    >>> small, small_mask = reduced_for_display(image, image > 9, 4)
+    >>> small.tolist(), small_mask.tolist()
+    ([[2, 4], [10, 12]], [[False, False], [True, True]])
+    """
+    from .large import reduction_factor
+
+    image, mask = np.asarray(image), np.asarray(mask) != 0
+    if channel_axis is not None:
+        image = np.moveaxis(image, channel_axis, -1)
+    rows, cols = mask.shape[-2:] if mask.ndim == 2 else (0, 0)
+    if mask.ndim != 2 or rows * cols <= max_pixels:
+        return image, mask
+    f = reduction_factor((rows, cols), max_pixels)
+    m, n = -(-rows // f), -(-cols // f)
+    extra = image.shape[2:]
+    out = np.empty((m, n) + extra, dtype=image.dtype)
+    out_mask = np.empty((m, n), dtype=bool)
+    step = max(1, (1 << 22) // max(cols * f, 1))
+    for i0 in range(0, m, step):
+        i1 = min(m, i0 + step)
+        for source, target, kind in ((image, out, "image"), (mask, out_mask, "mask")):
+            block = source[i0 * f:i1 * f].astype(np.float64)
+            pad = [(0, (i1 - i0) * f - block.shape[0]), (0, n * f - cols)]
+            block = np.pad(block, pad + [(0, 0)] * (block.ndim - 2), mode="edge")
+            mean = block.reshape((i1 - i0, f, n, f) + block.shape[2:]).mean(axis=(1, 3))
+            if kind == "mask":
+                target[i0:i1] = mean >= 0.5
+            elif np.issubdtype(image.dtype, np.integer) or image.dtype == np.bool_:
+                target[i0:i1] = np.rint(mean)
+            else:
+                target[i0:i1] = mean
+    return out, out_mask
+
+
 def write_overlay(image, mask, path, *, channel_axis: int | None = None,
-                  legend: bool = True) -> None:
+                  legend: bool = True, max_pixels: int | None = OVERLAY_MAX_PIXELS) -> None:
     """Write :func:`overlay_image` (with its legend by default) as an RGB PNG, atomically.
 
     Overlays are for looking at, so they use fast compression (zlib level 1): on a
     512x512 photograph-like picture that took about 0.7 times as long as level 6, for a
-    file about 13% larger (``tests/benchmarks/bench_io.py``).
+    file about 13% larger (``tests/benchmarks/bench_io.py``). A 2-D image of more than
+    ``max_pixels`` pixels is drawn from :func:`reduced_for_display` (None: always at
+    full size).
 
     Parameters
     ----------
@@ -254,6 +303,8 @@ def write_overlay(image, mask, path, *, channel_axis: int | None = None,
         As in :func:`overlay_image`.
     path : str or os.PathLike
         The ``.png`` file.
+    max_pixels : int or None
+        Largest overlay drawn at full size.
 
     Examples
     --------
@@ -268,5 +319,9 @@ def write_overlay(image, mask, path, *, channel_axis: int | None = None,
 
     if Path(path).suffix.lower() != ".png":
         raise ValueError(f"overlays are written as PNG; got {Path(path).name!r}")
+    if max_pixels is not None:
+        moved = channel_axis is not None
+        image, mask = reduced_for_display(image, mask, max_pixels, channel_axis=channel_axis)
+        channel_axis = -1 if moved else None
     picture = overlay_image(image, mask, channel_axis=channel_axis, legend=legend)
     write_image(picture, path, channel_axis=-1, compress_level=1)

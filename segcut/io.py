@@ -35,6 +35,10 @@ Rules, in one place:
 - **Pixel limit**: images with more than :data:`MAX_PIXELS` pixels (all pages of a
   stack together) are refused before they are decoded, as a guard against
   decompression bombs. Pass ``max_pixels=`` to change it.
+- **Large TIFF**: above :data:`LAZY_PIXELS` pixels the pixels are mapped from the file
+  (uncompressed, contiguous data: nothing is read until used) or decoded into a
+  temporary file mapping (tiled, compressed, BigTIFF), so they do not take anonymous
+  memory; :func:`segcut.split` then streams over them (:mod:`segcut.large`).
 - **Non-finite values** (float images): an image with no finite value is refused; when
   only some values are NaN or infinite they are replaced by the median of the finite
   values of the same channel, and a note is added to the warnings.
@@ -107,6 +111,9 @@ IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
 #: Largest number of pixels (all pages together) :func:`read_image` accepts by default:
 #: 64 megapixels, a guard against decompression bombs.
 MAX_PIXELS = 64 * 2**20
+#: TIFF images with more pixels are mapped from the file (or a temporary file), and
+#: TIFF files with more pixels are written in 256 x 256 tiles.
+LAZY_PIXELS = 16 * 2**20
 
 #: Labels of a seed array (:func:`read_seeds`).
 SEED_UNKNOWN, SEED_FOREGROUND, SEED_BACKGROUND = 0, 1, 2
@@ -398,7 +405,7 @@ def _pillow_to_array(img, notes: list, extras: dict | None = None
 def _integer_to_supported(values: np.ndarray) -> np.ndarray:
     """Other integer dtypes: uint16 when the values fit in 0..65535, else float64."""
     if values.dtype == np.uint8 or values.dtype == np.uint16:
-        return np.ascontiguousarray(values.astype(values.dtype.newbyteorder("=")))
+        return np.ascontiguousarray(values.astype(values.dtype.newbyteorder("="), copy=False))
     if values.dtype == np.bool_:
         return values.astype(np.uint8) * np.uint8(255)
     if values.size and values.min() >= 0 and values.max() <= 65535:
@@ -451,7 +458,10 @@ def _decode_tiff(path, max_pixels: int, notes: list):
             if 0 in shape:
                 raise InputError(f"image has no pixels (shape {shape})", path=path)
             _too_many(math.prod(spatial), max_pixels, path, shape)
-            return (series.asarray(), axes, shape, _photometric_name(page),
+            # large images: mapped from the file when stored contiguously, else
+            # decoded into a temporary file mapping (reclaimable, not anonymous memory)
+            out = "memmap" if math.prod(spatial) > LAZY_PIXELS else None
+            return (series.asarray(out=out), axes, shape, _photometric_name(page),
                     getattr(page, "colormap", None))
     except InputError:
         raise
@@ -783,7 +793,8 @@ def write_image(array, path, *, channel_axis: int | None = None,
         Axis holding RGB channels (moved last); None for gray images and stacks.
     compress_level : int, optional
         PNG zlib level, 0 (fastest, largest) to 9; 6 by default. TIFF files are
-        always zlib-compressed at tifffile's default level.
+        always zlib-compressed at tifffile's default level, in 256 x 256 tiles for
+        2-D images of more than :data:`LAZY_PIXELS` pixels.
 
     Raises
     ------
@@ -827,10 +838,12 @@ def write_image(array, path, *, channel_axis: int | None = None,
             raise ValueError(f"expected a 2-D image or a 3-D stack, got shape {array.shape}")
         import tifffile
 
+        tiled = spatial == 2 and array.shape[0] * array.shape[1] > LAZY_PIXELS
         with atomic_path(path) as tmp, _cannot_write(path):
             tifffile.imwrite(tmp, np.ascontiguousarray(array),
                              photometric="rgb" if colour else "minisblack",
-                             metadata=None, software=None, datetime=None, compression="zlib")
+                             metadata=None, software=None, datetime=None, compression="zlib",
+                             tile=(256, 256) if tiled else None)
     else:
         raise ValueError(f"unsupported image suffix {suffix!r} for writing (use .png or .tif)")
 

@@ -119,7 +119,10 @@ class SplitResult:
         ``n_vertices``, ``value``, ``upper_bound`` and ``gap`` of that graph.
         ``value``, ``upper_bound`` and ``gap`` above are those of the superpixel
         graph (the final mask projected onto it); the refinement graph's certify
-        the pixel split inside its band.
+        the pixel split inside its band. On the large-image path
+        (:mod:`segcut.large`) the superpixel graph is that of the reduced copy
+        (with its ``reduction_factor``) and ``"refine"`` sums the tiles' graphs
+        (``n_vertices``, ``value``, ``upper_bound`` summed, ``tiles`` counted).
     confidence : float64 ndarray, spatial shape of the image, or None
         How sure the split is at every pixel, in [0, 1] (1 = certain, 0.5 = either
         side costs the same; see :mod:`segcut.confidence`); None when
@@ -402,7 +405,13 @@ def _build(image, config, seeds, channel_axis, rng, progress=None):
                                                         seconds)
     if prepared is None:
         return _no_contrast_graph(caller_spatial, warnings, seconds)
-    config = prepared.config
+    return _graph_stages(prepared, seconds, rng, progress)[0]
+
+
+def _graph_stages(prepared, seconds, rng, progress=None):
+    """Superpixels, edges, priors, appearance and assembly; returns (ImageGraph, regions)."""
+    progress = _no_progress if progress is None else progress
+    config, warnings = prepared.config, prepared.warnings
     progress("superpixels")
     labels, regions, adjacency = _region_stage(prepared.features, config, seconds)
     t0 = time.perf_counter()
@@ -437,7 +446,7 @@ def _build(image, config, seeds, channel_axis, rng, progress=None):
                       threshold=threshold, start=start, warnings=warnings, seconds=seconds,
                       canonical_transform=prepared.transform, hypothesis=hypothesis,
                       choice_rule=rule, hypothesis_disagreement=disagreement,
-                      pixel_context=context)
+                      pixel_context=context), regions
 
 
 def build_image_graph(image, config: SplitConfig | None = None, *, seeds=None,
@@ -525,6 +534,16 @@ def _refine_stage(ig: ImageGraph, mask, config):
     if ctx.transform != "identity":
         refined = np.ascontiguousarray(apply_transform(refined, ctx.transform, inverse=True))
     return refined, record
+
+
+def _large_stage(image, config, seeds, channel_axis, generator, seed):
+    """The large-image path (:mod:`segcut.large`) when the image needs it, else None."""
+    from .large import split_large, uses_large_path
+
+    if not uses_large_path(image, config, channel_axis):
+        return None
+    return split_large(image, config, seeds=seeds, channel_axis=channel_axis,
+                       generator=generator, seed=seed)
 
 
 def _clean(mask, config):
@@ -649,6 +668,9 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     seed = config.seed if rng is None else rng
     generator = np.random.default_rng(seed)
     progress = _no_progress if progress is None else progress
+    large = _large_stage(image, config, seeds, channel_axis, generator, seed)
+    if large is not None:
+        return large
     ig = _build(image, config, seeds, channel_axis, generator, progress)
     seconds = dict(ig.seconds)
     warnings = list(ig.warnings)

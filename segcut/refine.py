@@ -32,7 +32,7 @@ from scipy import ndimage as ndi
 from .graph import graph_from_edges
 from .maxcut import solve_maxcut
 
-__all__ = ["RefineResult", "refine_boundary", "pixel_log_likelihood", "DISAGREEMENT"]
+__all__ = ["RefineResult", "refine_boundary", "refine_with_llr", "pixel_log_likelihood", "DISAGREEMENT"]
 
 #: |log-likelihood ratio| above which a pixel whose side it contradicts joins the band.
 DISAGREEMENT = float(np.log(8.0))
@@ -146,8 +146,31 @@ def refine_boundary(features, mask, words, n_words, *, band=3, smoothness=8.0,
     (True, 20)
     """
     mask = np.asarray(mask, dtype=bool)
-    free = np.ones(mask.shape, dtype=bool) if free is None else np.asarray(free, dtype=bool)
     llr = pixel_log_likelihood(words, mask, n_words)
+    return refine_with_llr(features, mask, llr, band=band, smoothness=smoothness,
+                           strength=strength, free=free)
+
+
+def refine_with_llr(features, mask, llr, *, band=3, smoothness=8.0, strength=1.0,
+                    free=None) -> RefineResult:
+    """:func:`refine_boundary` with the pixels' log-likelihood ratios given.
+
+    The large-image path (:mod:`segcut.large`) learns the colour-word models once,
+    on the reduced copy, and refines tile by tile with them; pixels with
+    ``free`` False (for a tile: those outside it) keep their side and enter the
+    graph only through their edges to the terminal.
+
+    Examples
+    --------
+    >>> image = np.zeros((12, 12)); image[3:9, 3:9] = 1.0
+    >>> coarse = np.zeros((12, 12), bool); coarse[4:8, 4:8] = True
+    >>> llr = np.where(image > 0, 1.0, -1.0)
+    >>> r = refine_with_llr(100 * image[..., None], coarse, llr, band=2)
+    >>> bool((r.mask == (image > 0)).all())
+    True
+    """
+    mask = np.asarray(mask, dtype=bool)
+    free = np.ones(mask.shape, dtype=bool) if free is None else np.asarray(free, dtype=bool)
     in_band = _band(mask, llr, band, free)
     k = int(np.count_nonzero(in_band))
     if k == 0:

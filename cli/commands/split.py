@@ -146,7 +146,8 @@ def _check_executor_options(jobs, scheduler, dask_local) -> None:
 
 def split(paths, *, out, include=(), exclude=(), config_path=None, overrides=None, seeds=None,
           jobs=None, force=False, quiet=False, as_json=False, scheduler=None, dask_local=None,
-          report=True, confidence_maps=False, stdout=None, stderr=None) -> int:
+          report=True, confidence_maps=False, stdout=None, stderr=None,
+          memory_budget=None) -> int:
     """Run ``segcut split``; return the exit code (0 all split, 1 some failed or none found).
 
     Raises
@@ -171,7 +172,7 @@ def split(paths, *, out, include=(), exclude=(), config_path=None, overrides=Non
         summary = run_batch(paths, out, config, include=include, exclude=exclude, seeds=seeds,
                             jobs=jobs, scheduler=scheduler, dask_local=dask_local, force=force,
                             report=report, progress=printer,
-                            confidence_maps=confidence_maps)
+                            confidence_maps=confidence_maps, memory_budget=memory_budget)
     except ValueError as err:  # refused before any work: a bad option value
         raise UsageError(f"split: {err}") from None
     except InputError as err:  # refused before any work: a path that cannot be used

@@ -67,11 +67,14 @@ Memory
 ------
 Peak memory is set by the largest image a worker holds (inputs stream: a worker reads
 one image, splits it, writes its outputs and lets it go; the parent keeps only the
-small records). Measured with ``tests/benchmarks/bench_batch.py --memory``: one
-6000x4000 RGB JPEG (24 Mpixel) peaks at 3.6 GiB resident for the whole
-``segcut split --jobs 1`` process, most of it in the superpixel stage; plan on a
-budget of 4 GiB per worker for such photographs (so ``--jobs 5`` on a 24 GiB machine),
-and a few hundred MiB per worker for 512x512 images.
+small records). Before a local run starts, each input's size is read from its header
+and :func:`segcut.batch.memory.estimate_peak_bytes` estimates its peak (a formula
+fitted to measured peaks, checked in ``tests/test_batch_memory.py``); the number of
+worker processes is lowered so that that many copies of the largest image's estimate
+fit in the memory budget: 80% of the memory available at the start, or
+``memory_budget`` GiB (``segcut split --memory-budget GIB``). Images above
+``max_graph_pixels`` take the large-image path (:mod:`segcut.large`), whose peak
+grows by about 23 bytes per pixel instead of about 210 (36 Mpixel RGB: about 1 GiB).
 """
 
 from __future__ import annotations

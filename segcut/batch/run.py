@@ -394,6 +394,24 @@ def _interrupts_held():
         raise KeyboardInterrupt
 
 
+def _memory_jobs(jobs, todo, config, memory_budget):
+    """``jobs`` capped by the memory budget and the largest image's estimated peak."""
+    from .memory import GIB, available_memory, estimate_peak_bytes, image_pixels, \
+        memory_workers, BUDGET_FRACTION
+
+    if jobs <= 1 or len(todo) <= 1:
+        return jobs
+    if memory_budget is None:
+        available = available_memory()
+        budget = None if available is None else BUDGET_FRACTION * available
+    else:
+        budget = float(memory_budget) * GIB
+    shapes = [image_pixels(entry[0].path) for entry in todo]
+    peak = max(estimate_peak_bytes(shape, config) for shape in shapes if shape) \
+        if any(shapes) else 0
+    return memory_workers(jobs, peak, budget)
+
+
 def _executor(tasks, *, jobs, n_todo, scheduler, dask_local, config, stage):
     if scheduler is not None or dask_local is not None:
         return run_dask(tasks, scheduler=scheduler, dask_local=dask_local, config=config)
@@ -415,7 +433,8 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
               exclude: Sequence[str] = (), seeds=None, jobs: int | None = None,
               scheduler: str | None = None, dask_local: int | None = None, force: bool = False,
               report: bool = True, progress: Callable[[BatchProgress], None] | None = None,
-              confidence_maps: bool = False) -> BatchSummary:
+              confidence_maps: bool = False,
+              memory_budget: float | None = None) -> BatchSummary:
     """Split every image under ``paths`` into ``out_dir``; resume what an earlier run left.
 
     Parameters
@@ -436,7 +455,9 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
         (``x.*``). An input without a marker in the folder runs without one and gets
         a warning in its record.
     jobs : int, optional
-        Worker processes (default: all cores). 1 runs in this process.
+        Worker processes (default: all cores). 1 runs in this process. Fewer are
+        started when the memory budget does not hold that many copies of the
+        estimated peak of the run's largest image (:mod:`segcut.batch.memory`).
     scheduler : str, optional
         Address of a Dask distributed scheduler to send the tasks to.
     dask_local : int, optional
@@ -456,6 +477,10 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
         0-255, 255 = certain) to ``confidence/``, named as its mask (TIFF for 3-D
         stacks), and name it in the record (``confidence``). Sets ``config.confidence``.
         An image an earlier run finished counts as finished only if its map exists.
+    memory_budget : float, optional
+        GiB the worker processes may use together; by default
+        :data:`~segcut.batch.memory.BUDGET_FRACTION` of the memory available at the
+        start; ``float("inf")`` never limits ``jobs``. Not applied to Dask runs.
 
     Returns
     -------
@@ -496,6 +521,8 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
     compact_records(out_dir, records)  # drops a torn last line before we append
     todo, resumed = _plan(listing, records, out_dir, config_hash, seeds, force,
                           confidence_maps)
+    if scheduler is None and dask_local is None:
+        jobs = _memory_jobs(jobs, todo, config, memory_budget)
     workers = dask_local or (1 if scheduler is None and jobs == 1 else jobs)
     tally = _Tally(len(listing.items) + len(listing.missing), resumed, workers, progress)
     for missing in listing.missing:
