@@ -402,6 +402,10 @@ def warm_up():
 
 # -- tables ------------------------------------------------------------------------------
 
+def _count(n_images):
+    return f"{n_images} image" + ("" if n_images == 1 else "s")
+
+
 def _hypotheses(values):
     counts = collections.Counter(values)
     return ", ".join(f"{name} {n}" for name, n in
@@ -409,7 +413,7 @@ def _hypotheses(values):
 
 
 def print_table(data_set, rows, results, n_images):
-    print(f"\n**{data_set.title}** ({n_images} images)\n")
+    print(f"\n**{data_set.title}** ({_count(n_images)})\n")
     print("| method | mean IoU | mean boundary F | median s per image | median certified gap "
           "| median superpixels | start hypotheses |")
     print("|---|---|---|---|---|---|---|")
@@ -429,7 +433,7 @@ def print_table(data_set, rows, results, n_images):
 
 def print_orientation_table(data_set, rows, results, n_images):
     print(f"\n**{data_set.title}**, segcut in all 8 processing orientations "
-          f"({n_images} images)\n")
+          f"({_count(n_images)})\n")
     print("| method | IoU, mean of 8 | boundary F, mean of 8 | IoU, canonical | lowest view "
           "| highest view | images swinging > 0.2 | median s |")
     print("|---|---|---|---|---|---|---|---|")
