@@ -140,8 +140,7 @@ def list_items(data_set):
     if data_set.kind == "synthetic":
         scenes, _ = _pipeline_scenes()
         return [f"{kind}-{seed}" for kind, seed in scenes]
-    sub = "images"
-    folder = Path(data_set.where) / sub
+    folder = Path(data_set.where) / "images"
     if not folder.is_dir():
         return None
     if data_set.kind == "demo":
