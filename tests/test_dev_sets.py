@@ -62,7 +62,7 @@ def test_nuclei_dev_subset_no_prior():
 @pytest.mark.skipif(not (HORSES / "images").is_dir(),
                     reason="dev photographs (../shared/data/horses-dev) are not present")
 def test_horses_dev_subset_tight_box():
-    """The reference mask's bounding box as ``box``: measured mean IoU 0.686 on this
+    """The reference mask's bounding box as ``box``: measured mean IoU 0.772 on this
     subset; no foreground outside the box."""
     ious = []
     for name in HORSES_SUBSET:
@@ -73,4 +73,4 @@ def test_horses_dev_subset_tight_box():
         outside[y0:y1, x0:x1] = False
         assert not outside.any(), name
         ious.append(compare_masks(result.mask, ref)["iou"])
-    assert np.mean(ious) >= 0.63, dict(zip(HORSES_SUBSET, np.round(ious, 3)))
+    assert np.mean(ious) >= 0.72, dict(zip(HORSES_SUBSET, np.round(ious, 3)))
