@@ -45,8 +45,8 @@ import numpy as np
 from scipy import ndimage as ndi
 
 from .maxcut import relative_gap
-from .orientation import CANONICAL_TRANSFORMS, _canonical_box, _lexicographic_less, \
-    _symmetric_edges, _KEY_BLOCKS, _KEY_LEVELS, apply_transform
+from .orientation import _canonical_box, _lexicographic_less, \
+    _symmetric_edges, _KEY_BLOCKS, _KEY_LEVELS, apply_transform, pick_canonical
 from .prepare import NORMALISE_PERCENTILES, _channels_last, image_features
 from .priors import SEED_BACKGROUND, SEED_FOREGROUND
 from .refine import DISAGREEMENT, refine_with_llr
@@ -211,20 +211,8 @@ def _views_less(arr, name, best, lo, hi):
 
 def _canonical_transform(arr, lo, hi):
     """:func:`segcut.orientation.canonical_transform` of the normalised values, streamed."""
-    sums = _block_sums(arr, lo, hi)
-    keys = {}
-    for name in CANONICAL_TRANSFORMS:
-        view_shape = apply_transform(arr[..., :1], name, axes=(0, 1)).shape[:-1]
-        block_view = apply_transform(sums, name, axes=(0, 1))
-        keys[name] = tuple(int(v) for v in view_shape) + tuple(block_view.ravel().tolist())
-    smallest = min(keys.values())
-    best = None
-    for name in CANONICAL_TRANSFORMS:
-        if keys[name] != smallest:
-            continue
-        if best is None or _views_less(arr, name, best, lo, hi):
-            best = name
-    return best
+    return pick_canonical(arr[..., :1], _block_sums(arr, lo, hi), (0, 1),
+                          lambda a, b: _views_less(arr, a, b, lo, hi))
 
 
 # -- the reduced copy -------------------------------------------------------------------

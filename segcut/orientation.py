@@ -147,19 +147,31 @@ def canonical_transform(values) -> str:
     """
     values = np.asarray(values)
     axes = (values.ndim - 3, values.ndim - 2)
-    sums = _block_sums(values)
+
+    def less(a, b):
+        return _lexicographic_less(apply_transform(values, a, axes=axes),
+                                   apply_transform(values, b, axes=axes))
+
+    return pick_canonical(values[..., :1], _block_sums(values), axes, less)
+
+
+def pick_canonical(first_channel, sums, axes, less):
+    """The transform with the smallest key: view shape, block sums, then ``less(a, b)``.
+
+    ``first_channel`` gives the view shapes, ``sums`` (blocks x blocks) the block
+    sums of the values, ``less(a, b)`` says whether the values seen through
+    transform ``a`` come before those seen through ``b`` pixel by pixel (called
+    only between transforms whose shapes and block sums tie).
+    """
     keys = {}
     for name in CANONICAL_TRANSFORMS:
-        view_shape = apply_transform(values[..., :1], name, axes=axes).shape[:-1]
+        view_shape = apply_transform(first_channel, name, axes=axes).shape[:-1]
         block_view = apply_transform(sums, name, axes=(0, 1))
         keys[name] = tuple(int(v) for v in view_shape) + tuple(block_view.ravel().tolist())
     smallest = min(keys.values())
     best = None
     for name in CANONICAL_TRANSFORMS:
-        if keys[name] != smallest:
-            continue
-        if best is None or _lexicographic_less(apply_transform(values, name, axes=axes),
-                                               apply_transform(values, best, axes=axes)):
+        if keys[name] == smallest and (best is None or less(name, best)):
             best = name
     return best
 
