@@ -30,6 +30,7 @@ __all__ = ["HYPOTHESES", "CHOICE_RULES", "start_hypotheses", "run_model_rounds",
 #: The start hypotheses of a split with no prior, by name.
 HYPOTHESES = {
     "prior": "the priors, box or seeds mark the first foreground and background samples",
+    "none": "no colour models (colour_model = false) or an image without contrast",
     "frame_shy_colours": "colour clusters rarer on the image frame than inside the image",
     "central_box": "the regions inside the central box of the center prior",
     "colour_two_means": "a 2-means split of the region colours, oriented by the border rule",

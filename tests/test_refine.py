@@ -163,3 +163,10 @@ def test_box_outside_is_background_and_object_is_found():
     assert _iou(result.mask, truth) >= 0.95
     assert not result.mask[5:20, 5:20].any()
     assert cut_value(result.image_graph.graph, result.image_graph.start) <= result.upper_bound
+
+
+def test_every_recorded_hypothesis_is_documented():
+    image, _ = _blobs(seed=9)
+    for config in (SplitConfig(), SplitConfig(colour_model=False), SplitConfig(prior=("border",))):
+        assert split(image, config, rng=0).hypothesis in HYPOTHESES
+    assert split(np.zeros((20, 20)), rng=0).hypothesis in HYPOTHESES
