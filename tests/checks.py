@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from segcut.graph import as_signed_graph
+from segcut.graph import as_signed_graph, graph_from_edges
 from segcut.maxcut import STATUSES, CutResult
 
 __all__ = ["NUMPY_TRANSFORMS", "SHARED_DATA", "assert_valid_cut", "brute_force_maxcut", "reference_cut_value",
@@ -138,3 +138,16 @@ NUMPY_TRANSFORMS = {
     "flip_rows": np.flipud,
     "anti_transpose": lambda a: np.swapaxes(a[::-1, ::-1], 0, 1),
 }
+
+
+def signed_graph_with_m_edges(n, m, seed, weights):
+    """m distinct random pairs of n vertices with +-1, normal or whole weights in [-10, 10]."""
+    rng = np.random.default_rng(seed)
+    i, j = rng.integers(0, n, 3 * m), rng.integers(0, n, 3 * m)
+    keep = i != j
+    a, b = np.minimum(i, j)[keep], np.maximum(i, j)[keep]
+    _, first = np.unique(a * n + b, return_index=True)
+    chosen = np.sort(first)[:m]
+    w = {"pm": lambda: rng.choice([-1.0, 1.0], size=m), "normal": lambda: rng.normal(size=m),
+         "whole": lambda: rng.integers(-10, 11, size=m).astype(float)}[weights]()
+    return graph_from_edges(n, a[chosen], b[chosen], w)

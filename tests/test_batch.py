@@ -405,16 +405,23 @@ def test_file_name_that_is_not_utf8_is_recorded_and_resumed(tmp_path):
     assert run_batch([src], out, SplitConfig(), jobs=1, report=False).resumed == 1
 
 
-def test_multipage_tiff_stack_gets_a_tiff_mask(tmp_path):
+def _write_stack(src):
+    """A 4-slice gray TIFF stack of a noisy ball, ``src/stack.tif``; returns ``src``."""
     import tifffile
 
     rng = np.random.default_rng(3)
     _, yy, xx = np.mgrid[0:4, 0:64, 0:64]
     ball = (yy - 32) ** 2 + (xx - 30) ** 2 < 18 ** 2
     volume = np.clip(np.where(ball, 0.8, 0.2) + rng.normal(0, 0.03, ball.shape), 0, 1)
-    src = tmp_path / "in"
     src.mkdir()
     tifffile.imwrite(src / "stack.tif", (volume * 255).astype(np.uint8), photometric="minisblack")
+    return src
+
+
+def test_multipage_tiff_stack_gets_a_tiff_mask(tmp_path):
+    import tifffile
+
+    src = _write_stack(tmp_path / "in")
     out = tmp_path / "out"
     summary = run_batch([src], out, SplitConfig(), jobs=1, report=False)
     assert summary.done == 1
@@ -635,13 +642,7 @@ def test_resume_with_confidence_maps_needs_the_map(tmp_path):
 def test_confidence_map_of_a_stack_is_a_tiff(tmp_path):
     import tifffile
 
-    rng = np.random.default_rng(3)
-    _, yy, xx = np.mgrid[0:4, 0:64, 0:64]
-    ball = (yy - 32) ** 2 + (xx - 30) ** 2 < 18 ** 2
-    volume = np.clip(np.where(ball, 0.8, 0.2) + rng.normal(0, 0.03, ball.shape), 0, 1)
-    src = tmp_path / "in"
-    src.mkdir()
-    tifffile.imwrite(src / "stack.tif", (volume * 255).astype(np.uint8), photometric="minisblack")
+    src = _write_stack(tmp_path / "in")
     out = tmp_path / "out"
     assert run_batch([src], out, SplitConfig(), jobs=1, report=False,
                      confidence_maps=True).done == 1

@@ -14,7 +14,7 @@ from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 from networkx.algorithms.approximation.maxcut import one_exchange
 
-from checks import assert_valid_cut, reference_gains
+from checks import assert_valid_cut, reference_gains, signed_graph_with_m_edges
 from segcut.graph import cut_value, graph_from_edges
 from segcut.maxcut import solve_maxcut
 from segcut.maxcut.local import descend, flip_gains
@@ -89,19 +89,6 @@ def test_against_networkx_one_exchange(seed):
     # and the best of a few of our descents is at least as good
     best = max(solve_maxcut(g, method="local", rng=100 * seed + k).value for k in range(8))
     assert best >= nx_value - 1e-9
-
-
-def signed_graph_with_m_edges(n, m, seed, weights):
-    """m distinct random pairs of n vertices with +-1, normal or whole weights in [-10, 10]."""
-    rng = np.random.default_rng(seed)
-    i, j = rng.integers(0, n, 3 * m), rng.integers(0, n, 3 * m)
-    keep = i != j
-    a, b = np.minimum(i, j)[keep], np.maximum(i, j)[keep]
-    _, first = np.unique(a * n + b, return_index=True)
-    chosen = np.sort(first)[:m]
-    w = {"pm": lambda: rng.choice([-1.0, 1.0], size=m), "normal": lambda: rng.normal(size=m),
-         "whole": lambda: rng.integers(-10, 11, size=m).astype(float)}[weights]()
-    return graph_from_edges(n, a[chosen], b[chosen], w)
 
 
 @pytest.mark.parametrize("n, m, weights, seed", [

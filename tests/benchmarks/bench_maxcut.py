@@ -25,6 +25,9 @@ from pathlib import Path
 import numpy as np
 
 from segcut.graph import cut_value, graph_from_edges
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+from checks import signed_graph_with_m_edges  # noqa: E402  (tests/checks.py)
 from segcut.maxcut import available_methods, solve_maxcut
 from segcut.maxcut.formats import read_graph
 from segcut.maxcut.local import descend
@@ -149,20 +152,6 @@ def compare_with_networkx(name, graph, max_descents=100):
     return rows
 
 
-def random_signed_graph(n, m, seed, weights):
-    """m distinct random pairs of n vertices; +-1, normal or whole weights in [-10, 10]
-    (the construction of tests/test_maxcut_local.py)."""
-    rng = np.random.default_rng(seed)
-    i, j = rng.integers(0, n, 3 * m), rng.integers(0, n, 3 * m)
-    keep = i != j
-    a, b = np.minimum(i, j)[keep], np.maximum(i, j)[keep]
-    _, first = np.unique(a * n + b, return_index=True)
-    chosen = np.sort(first)[:m]
-    w = {"pm": lambda: rng.choice([-1.0, 1.0], size=m), "normal": lambda: rng.normal(size=m),
-         "whole": lambda: rng.integers(-10, 11, size=m).astype(float)}[weights]()
-    return graph_from_edges(n, a[chosen], b[chosen], w)
-
-
 def defaults_against_networkx(n=300, m=1200, seeds=range(4), kinds=("pm", "normal", "whole")):
     """``solve_maxcut(method="local")`` at its defaults (the whole call: validation and
     re-check included; fastest of 20) against one networkx one_exchange run on the same
@@ -173,7 +162,7 @@ def defaults_against_networkx(n=300, m=1200, seeds=range(4), kinds=("pm", "norma
     rows = []
     for kind in kinds:
         for seed in seeds:
-            graph = random_signed_graph(n, m, seed, kind)
+            graph = signed_graph_with_m_edges(n, m, seed, kind)
             h = nx.Graph()
             h.add_nodes_from(range(n))
             i, j, w = graph.edges()
