@@ -45,7 +45,8 @@ from .orientation import CANONICAL_TRANSFORMS, _canonical_box, apply_transform, 
 from .prepare import image_features, prepare_image
 from .priors import SEED_BACKGROUND, SEED_FOREGROUND, box_map, get_prior, prior_map, \
     seeded_regions
-from .refine import refine_boundary
+from .pixel_models import TWO_CLUSTER_SEPARATION, two_gaussian_log_likelihood
+from .refine import pixel_log_likelihood, refine_with_llr
 from .regions import describe_regions, region_adjacency, word_histograms
 from .superpixels import oversegment
 
@@ -523,14 +524,21 @@ def _refine_stage(ig: ImageGraph, mask, config):
     if not config.refine or not inside.any() or inside.all():
         refined, record = inside, None
     else:
-        result = refine_boundary(ctx.features, inside, ctx.words, ctx.n_words,
+        llr = pixel_log_likelihood(ctx.words, inside, ctx.n_words)
+        fit = two_gaussian_log_likelihood(ctx.features, inside)
+        two_cluster = fit.separation >= TWO_CLUSTER_SEPARATION
+        if two_cluster:
+            llr = llr + fit.log_likelihood_ratio
+        result = refine_with_llr(ctx.features, inside, llr,
                                  band=_refine_band(config, ctx.labels, ig.n_regions),
                                  smoothness=config.refine_smoothness,
                                  strength=config.model_strength, free=ctx.fixed == 0)
         refined = result.mask
         record = {"name": "refine", "n_vertices": result.n_vertices,
                   "value": result.value, "upper_bound": result.upper_bound,
-                  "gap": relative_gap(result.value, result.upper_bound)}
+                  "gap": relative_gap(result.value, result.upper_bound),
+                  "pixel_model": "colour_words+two_gaussians" if two_cluster else "colour_words",
+                  "separation": round(fit.separation, 6)}
     if ctx.transform != "identity":
         refined = np.ascontiguousarray(apply_transform(refined, ctx.transform, inverse=True))
     return refined, record

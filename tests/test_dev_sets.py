@@ -49,14 +49,14 @@ def _bounding_box(mask):
 @pytest.mark.skipif(not (NUCLEI / "images").is_dir(),
                     reason="microscopy dev images (../shared/data/nuclei-dev) are not present")
 def test_nuclei_dev_subset_no_prior():
-    """No prior, default settings: measured mean IoU 0.786 on this subset."""
+    """No prior, default settings: measured mean IoU 0.819 on this subset."""
     ious = []
     for name in NUCLEI_SUBSET:
         image, ref = _load(NUCLEI, name)
         result = split(image)
         assert result.orientation == "border_rule"
         ious.append(compare_masks(result.mask, ref)["iou"])
-    assert np.mean(ious) >= 0.73, dict(zip(NUCLEI_SUBSET, np.round(ious, 3)))
+    assert np.mean(ious) >= 0.77, dict(zip(NUCLEI_SUBSET, np.round(ious, 3)))
 
 
 @pytest.mark.skipif(not (HORSES / "images").is_dir(),
