@@ -87,15 +87,35 @@ def _no_stage(name: str) -> None:
     pass
 
 
+def is_large_input(spatial_shape, config) -> bool:
+    """True for a 2-D image above ``config.max_graph_pixels`` (the large-image path): its
+    mask (and confidence map) is written as a TIFF in tiles, not as a PNG.
+
+    Examples
+    --------
+    >>> from segcut import SplitConfig
+    >>> is_large_input((2000, 2000), SplitConfig()), is_large_input((4000, 4000), SplitConfig())
+    (False, True)
+    """
+    limit = getattr(config, "max_graph_pixels", None)
+    return limit is not None and len(spatial_shape) == 2 \
+        and spatial_shape[0] * spatial_shape[1] > limit
+
+
 def process_task(task: Task, stage=_no_stage) -> dict:
     """Read, split and write one image; return its record. Never raises for bad input.
+
+    The mask goes to ``<task.mask>.png``, or ``.tif`` (zlib-compressed, in 256 x 256
+    tiles for a 2-D image above ``max_graph_pixels``, :func:`is_large_input`) for 3-D
+    stacks and large images; the record's ``mask`` names the file written. Overlays of
+    large images are drawn from a reduced copy (:func:`segcut.drawing.write_display_overlay`).
 
     ``stage`` (in-process runs only) is called with ``"reading"``, ``"splitting"``, then
     ``"splitting: <stage>"`` for each stage of :func:`segcut.split`
     (:data:`segcut.pipeline.STAGES`), and ``"writing"`` as the work moves on.
     """
     from ..confidence import confidence_to_uint8
-    from ..drawing import write_overlay
+    from ..drawing import write_display_overlay
     from ..io import read_image, read_seeds, write_image, write_mask
     from ..pipeline import split
 
@@ -121,16 +141,17 @@ def process_task(task: Task, stage=_no_stage) -> dict:
                            rng=image_seed(task.base_seed, input_hash),
                            progress=lambda name: stage(f"splitting: {name}"))
             out = Path(task.out_dir)
-            suffix = ".tif" if image.is_stack else ".png"
+            large = is_large_input(image.spatial_shape, task.config)
+            suffix = ".tif" if image.is_stack or large else ".png"
             mask_name = task.mask + suffix
             stage("writing")
-            write_mask(result.mask, out / mask_name)
-            write_overlay(image.array, result.mask, out / task.overlay,
-                          channel_axis=image.channel_axis)
+            write_mask(result.mask, out / mask_name, tiled=large)
+            write_display_overlay(image, result.mask, out / task.overlay)
             confidence_name = None
             if task.confidence is not None and result.confidence is not None:
                 confidence_name = task.confidence + suffix
-                write_image(confidence_to_uint8(result.confidence), out / confidence_name)
+                write_image(confidence_to_uint8(result.confidence), out / confidence_name,
+                            tiled=large)
         caught_messages = [one_line(w.message) for w in caught]
         record.update(json_ready(result.to_record()))
         record["status"] = "ok"

@@ -116,6 +116,10 @@ def memory_workers(jobs: int, peak_bytes: int, budget_bytes: float | None) -> in
 def image_pixels(path) -> tuple | None:
     """The spatial shape of the image at ``path`` from its header (no decoding); None
     when it cannot be read that way."""
+    from ..io_zarr import is_zarr_store, zarr_spatial_shape
+
+    if is_zarr_store(path):
+        return zarr_spatial_shape(path)
     try:
         import tifffile
 
