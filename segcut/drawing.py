@@ -292,7 +292,7 @@ def _block_average(source, f):
     return out
 
 
-def write_display_overlay(image_data, mask, path, *,
+def write_display_overlay(image_data, mask, path, *, legend: bool = True,
                           max_pixels: int = OVERLAY_MAX_PIXELS) -> None:
     """:func:`write_overlay` of an :class:`~segcut.io.ImageData` and its mask.
 
@@ -310,7 +310,7 @@ def write_display_overlay(image_data, mask, path, *,
     >>> level = (2.0, 2.0, lambda: np.full((4, 4), 200, np.uint8))
     >>> data = ImageData(full, None, None, "ZARR", "yx uint8", (), None, (level,))
     >>> path = os.path.join(tempfile.mkdtemp(), "o.png")
-    >>> write_display_overlay(data, np.zeros((8, 8), bool), path, max_pixels=16)
+    >>> write_display_overlay(data, np.zeros((8, 8), bool), path, legend=False, max_pixels=16)
     >>> int(read_image(path).array[0, 0, 0])  # drawn from the stored level
     200
     """
@@ -330,10 +330,10 @@ def write_display_overlay(image_data, mask, path, *,
         small = np.pad(small, [(0, max(0, picture.shape[0] - m)), (0, max(0, picture.shape[1] - n))],
                        mode="edge")[:picture.shape[0], :picture.shape[1]]
         write_overlay(picture, small, path, channel_axis=image_data.channel_axis,
-                      max_pixels=None)
+                      legend=legend, max_pixels=None)
         return
     write_overlay(image_data.array, mask, path, channel_axis=image_data.channel_axis,
-                  max_pixels=max_pixels)
+                  legend=legend, max_pixels=max_pixels)
 
 
 def write_overlay(image, mask, path, *, channel_axis: int | None = None,
