@@ -24,6 +24,10 @@ dominates the time, so here:
    and each tile's graph is solved with every pixel outside the tile fixed (tiles in
    row order, each seeing the sides its predecessors chose).
 
+The full-resolution ``labels`` come back as int32 and ``confidence`` as float32 (on
+the full-resolution path they stay int64 / float64): at 100 Mpixel that is 0.4 GB
+each instead of 0.8 GB.
+
 Everything after step 1 happens in the canonical orientation, so results stay
 exactly equivariant under flips and quarter turns. 3-D stacks, float images with
 non-finite values and images without contrast take the full-resolution path.
@@ -479,14 +483,16 @@ def _finish(refined, reduced, config, transform, seed, seconds, refine_record, c
     t0 = time.perf_counter()
     ig, f, shape = reduced.ig, reduced.factor, reduced.shape
     final = _clean(refined, config)
-    labels = _expand(ig.labels, f, shape, transform)
+    # full-resolution maps in compact types: superpixel labels fit int32 (a graph of at
+    # most max_graph_pixels regions), confidences are shares in [0, 1] (float32)
+    labels = _expand(ig.labels.astype(np.int32), f, shape, transform)
     value = cut_value(ig.graph, _region_sides(ig, labels, final))
     seconds["cleanup"] = time.perf_counter() - t0
     confidence = None
     if config.confidence:
         t0 = time.perf_counter()
         small = split_confidence(ig, reduced.sides, margin=config.confidence_margin)
-        confidence = _expand(small, f, shape, transform)
+        confidence = _expand(small.astype(np.float32), f, shape, transform)
         seconds["confidence"] = time.perf_counter() - t0
     bound = reduced.bound
     graphs = [{"name": "superpixels", "n_vertices": int(ig.graph.n_vertices),

@@ -88,3 +88,59 @@ def test_run_caps_jobs_by_the_largest_image(tmp_path):
     assert _memory_jobs(8, todo, SplitConfig(), 2.5 * peak / GIB) == 2
     assert _memory_jobs(8, todo, SplitConfig(), float("inf")) == 8
     assert 1 <= _memory_jobs(8, todo, SplitConfig(), None) <= 8
+
+
+def test_dask_budget_comes_from_the_workers_memory_limits():
+    # common arithmetic: 80% of two 4 GiB workers; a given budget wins; inf means none
+    from segcut.batch.executors import MEMORY_RESOURCE, _cluster_memory
+
+    def client(*workers):
+        info = {"workers": {f"w{k}": w for k, w in enumerate(workers)}}
+        return SimpleNamespace(scheduler_info=lambda: info)
+
+    plain = client({"memory_limit": 4 * GIB}, {"memory_limit": 4 * GIB})
+    assert _cluster_memory(plain, None) == (pytest.approx(0.8 * 8 * GIB), None)
+    assert _cluster_memory(plain, 3 * GIB) == (3 * GIB, None)
+    assert _cluster_memory(plain, float("inf")) == (None, None)
+    assert _cluster_memory(client({"memory_limit": 0}), None) == (None, None)
+    declared = client({"memory_limit": GIB, "resources": {MEMORY_RESOURCE: 2e9}},
+                      {"memory_limit": GIB, "resources": {MEMORY_RESOURCE: 5e9}})
+    assert _cluster_memory(declared, None)[1] == 5e9
+    half = client({"memory_limit": GIB, "resources": {MEMORY_RESOURCE: 2e9}},
+                  {"memory_limit": GIB})
+    assert _cluster_memory(half, None)[1] is None
+
+
+def test_dask_holds_tasks_back_when_the_budget_holds_one_image(tmp_path):
+    # a budget below two images' estimated peaks: one image in flight at a time (the next
+    # one waits on this side), where the window alone would hand out four at once
+    from segcut.batch.executors import Task, run_dask, task_peak_bytes
+
+    config = SplitConfig(n_superpixels=40)
+    tasks = []
+    for k in range(4):
+        path = tmp_path / f"im{k}.png"
+        image = np.zeros((48, 48, 3), np.uint8)
+        image[10 + k:30, 12:34] = (200, 60, 40)
+        Image.fromarray(image).save(path)
+        tasks.append(Task(path=str(path), input=path.name, out_dir=str(tmp_path),
+                          mask=f"masks/{k}", overlay=f"overlays/{k}.png", config=config,
+                          config_hash="x", input_hash=None, seeds_path=None, seeds_hash=None,
+                          base_seed=0))
+    peak = task_peak_bytes(tasks[0])
+    assert peak == estimate_peak_bytes((48, 48), config) > 0
+    pulled = []
+
+    def handed_out():
+        for task in tasks:
+            pulled.append(task.input)
+            yield task
+
+    seen_at_first = None
+    records = []
+    for _, record in run_dask(handed_out(), scheduler=None, dask_local=2, config=config,
+                              memory_budget=1.5 * peak):
+        seen_at_first = len(pulled) if seen_at_first is None else seen_at_first
+        records.append(record)
+    assert seen_at_first <= 2  # one submitted, one held back
+    assert len(records) == 4 and all(r["status"] == "ok" for r in records)

@@ -7,6 +7,8 @@ the square), the known truth of generated scenes, and the full-resolution path.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -187,3 +189,19 @@ def test_overlays_of_large_images_come_from_a_reduced_copy(tmp_path):
     # the reduced overlay is close to the full one sampled at block centres
     sampled = full[::2, ::2].astype(int)
     assert np.median(np.abs(small.astype(int) - sampled)) <= 25
+
+
+def test_full_resolution_maps_are_compact_and_give_the_same_value():
+    # reference: mask_to_sides on int64 labels (the full path's type) gives the graph
+    # value the large path reports from its int32 labels; the full path keeps its types
+    from segcut.graph import cut_value
+    from segcut.image_graph import mask_to_sides
+
+    image, _ = _scene(9)
+    result = split(image, LARGE)
+    assert result.labels.dtype == np.int32 and result.confidence.dtype == np.float32
+    wide = replace(result.image_graph, labels=result.labels.astype(np.int64))
+    sides, _ = mask_to_sides(wide, result.mask)
+    assert cut_value(wide.graph, sides) == pytest.approx(result.value, rel=1e-12)
+    small = split(image[:100, :100], LARGE)
+    assert small.labels.dtype == np.int64 and small.confidence.dtype == np.float64
