@@ -121,6 +121,7 @@ def process_task(task: Task, stage=_no_stage) -> dict:
     from ..pipeline import split
 
     started = time.perf_counter()
+    io_seconds: dict = {}
     record = {"input": task.input, "status": "ok"}
     caught_messages: list[str] = []
     input_hash = task.input_hash
@@ -134,8 +135,10 @@ def process_task(task: Task, stage=_no_stage) -> dict:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             stage("reading")
+            t0 = time.perf_counter()
             image = read_image(task.path)
             seeds = None if task.seeds_path is None else read_seeds(task.seeds_path)
+            io_seconds["read"] = time.perf_counter() - t0
             stage("splitting")
             result = split(image.array, task.config, seeds=seeds,
                            channel_axis=image.channel_axis,
@@ -146,6 +149,7 @@ def process_task(task: Task, stage=_no_stage) -> dict:
             suffix = ".tif" if image.is_stack or large else ".png"
             mask_name = task.mask + suffix
             stage("writing")
+            t0 = time.perf_counter()
             write_mask(result.mask, out / mask_name, tiled=large)
             write_display_overlay(image, result.mask, out / task.overlay)
             confidence_name = None
@@ -153,6 +157,7 @@ def process_task(task: Task, stage=_no_stage) -> dict:
                 confidence_name = task.confidence + suffix
                 write_image(confidence_to_uint8(result.confidence), out / confidence_name,
                             tiled=large)
+            io_seconds["write"] = time.perf_counter() - t0
         caught_messages = [one_line(w.message) for w in caught]
         record.update(json_ready(result.to_record()))
         record["status"] = "ok"
@@ -188,7 +193,7 @@ def process_task(task: Task, stage=_no_stage) -> dict:
     record["versions"] = versions()
     stages = record.get("seconds")
     if isinstance(stages, dict):
-        record["stage_seconds"] = stages
+        record["stage_seconds"] = {**stages, **io_seconds}  # split's stages, reading, writing
     record["seconds"] = time.perf_counter() - started
     return record
 
