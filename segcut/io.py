@@ -315,8 +315,9 @@ def _too_many(n_pixels: int, max_pixels: int, path, shape, *, fmt: str | None = 
     raise InputError(
         f"{whole} of {n_pixels} pixels (shape {tuple(shape)}) exceeds the limit of "
         f"{max_pixels} pixels for images decoded whole into memory (a guard against "
-        f"decompression bombs); save it as a 2-D TIFF or Zarr array, read through a file "
-        f"mapping up to {MAX_MAPPED_PIXELS} pixels, or raise max_pixels", path=path)
+        f"decompression bombs); save it as a 2-D TIFF (uncompressed, zlib or tiled) or a Zarr "
+        f"array, read through a file mapping up to {MAX_MAPPED_PIXELS} pixels, or raise "
+        "max_pixels", path=path)
 
 
 def _read_with_pillow(path, max_pixels: int, head: bytes, *, tiff_fallback=False) -> ImageData:
@@ -358,7 +359,9 @@ def _read_with_pillow(path, max_pixels: int, head: bytes, *, tiff_fallback=False
             width, height = img.size
             if width < 1 or height < 1:
                 raise InputError(f"image has no pixels (size {width}x{height})", path=path)
-            _too_many(width * height, max_pixels, path, (height, width), fmt=fmt)
+            _too_many(width * height, max_pixels, path, (height, width),
+                      fmt="TIFF (a compression decoded whole, by Pillow)" if tiff_fallback
+                      else fmt)
             n_frames = getattr(img, "n_frames", 1)
             if fmt == "TIFF" and n_frames > 1:
                 _too_many(width * height * n_frames, max_pixels, path, (n_frames, height, width),

@@ -387,9 +387,9 @@ def test_pixel_limit_below_pillows_own(tmp_path):
     path.write_bytes(_png(struct.pack(">IIBBBBB", 9000, 9000, 1, 0, 0, 0, 0),
                           zlib.compress(b"\x00" * 64)))
     assert 9000 * 9000 > MAX_PIXELS
-    with pytest.raises(InputError, match="PNG image of 81000000 pixels .* exceeds the limit of "
-                                         "67108864 pixels for images decoded whole into "
-                                         "memory .* save it as a 2-D TIFF or Zarr array") as info:
+    refusal = ("PNG image of 81000000 pixels .* exceeds the limit of 67108864 pixels for "
+               "images decoded whole into memory .* save it as a 2-D TIFF .* or a Zarr array")
+    with pytest.raises(InputError, match=refusal) as info:
         read_image(path)
     _check_one_line(info.value, path)
 

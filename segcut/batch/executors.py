@@ -95,7 +95,7 @@ def is_large_input(spatial_shape, config) -> bool:
     Examples
     --------
     >>> from segcut import SplitConfig
-    >>> is_large_input((2000, 2000), SplitConfig()), is_large_input((4000, 4000), SplitConfig())
+    >>> is_large_input((1500, 1500), SplitConfig()), is_large_input((2000, 2000), SplitConfig())
     (False, True)
     """
     limit = getattr(config, "max_graph_pixels", None)
