@@ -291,8 +291,8 @@ def read_zarr(path, *, max_pixels: int, lazy_pixels: int, max_mapped_pixels: int
     if array.dtype.kind not in "biuf":
         raise InputError(f"unsupported pixel type {array.dtype} in the Zarr array", path=path)
     index, order, kept = _layout(shape, axes, path)
-    out_shape = tuple(np.array(shape)[[i for i, k in enumerate(index)
-                                       if isinstance(k, slice)]][order])
+    sliced = [shape[i] for i, k in enumerate(index) if isinstance(k, slice)]
+    out_shape = tuple(int(sliced[k]) for k in order)
     spatial = out_shape[:-1] if kept.endswith("c") else out_shape
     pixels = math.prod(spatial)
     from .io import _too_many
@@ -301,7 +301,7 @@ def read_zarr(path, *, max_pixels: int, lazy_pixels: int, max_mapped_pixels: int
     if mapped:
         _too_many(pixels, max_mapped_pixels, path, out_shape, mapped=True)
     else:
-        _too_many(pixels, max_pixels, path, out_shape, fmt="a Zarr stack")
+        _too_many(pixels, max_pixels, path, out_shape, fmt="3-D Zarr")
     mode = f"{kind} {axes} {array.dtype.name}".strip()
     channels = out_shape[-1] if kept.endswith("c") else 0
     try:

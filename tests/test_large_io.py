@@ -159,6 +159,10 @@ def test_stacks_and_whole_decoded_formats_keep_the_limit(tmp_path):
     with pytest.raises(InputError, match="3-D TIFF image of 1200 pixels .* exceeds the limit "
                                          "of 1000 pixels for images decoded whole"):
         io.read_image(stack, max_pixels=1000)
+    store = tmp_path / "z.zarr"
+    zarr.open_array(str(store), mode="w", shape=(3, 20, 20), dtype="u1")
+    with pytest.raises(InputError, match=r"3-D Zarr image of 1200 pixels \(shape \(3, 20, 20\)\)"):
+        io.read_image(store, max_pixels=1000)
     png = tmp_path / "p.png"
     io.write_image(np.zeros((40, 40), np.uint8), png)
     with pytest.raises(InputError, match="save it as a 2-D TIFF .* or a Zarr array") as info:
