@@ -14,9 +14,13 @@ first; the full-resolution labels, confidence, mask and tiles later). Measured p
 large path 4 Mpixel 0.37 (0.45), 16 Mpixel 0.59 (0.60), 36 Mpixel 1.02 (1.02),
 100 Mpixel 2.32 (2.39). ``tests/test_batch_memory.py`` checks the estimate against a measured peak.
 
-:func:`memory_workers` caps the number of worker processes of a batch at what the
-memory budget (by default :data:`BUDGET_FRACTION` of the memory available when the run
-starts) holds for the largest image of the run.
+:func:`memory_workers` caps the number of worker processes of a batch (the process
+pool's ``jobs``, a local Dask cluster's workers) at what the memory budget (by default
+:data:`BUDGET_FRACTION` of the memory available when the run starts) holds for the
+largest image of the run. Dask runs also hold each image's estimate against the budget
+while it is in flight (:func:`segcut.batch.executors.run_dask`). Images read through a
+file mapping (large TIFF and Zarr, :mod:`segcut.io`) count their mapped pixels in the
+resident memory measured here as well.
 """
 
 from __future__ import annotations
