@@ -115,9 +115,7 @@ def process_task(task: Task, stage=_no_stage) -> dict:
     ``"splitting: <stage>"`` for each stage of :func:`segcut.split`
     (:data:`segcut.pipeline.STAGES`), and ``"writing"`` as the work moves on.
     """
-    from ..confidence import confidence_to_uint8
-    from ..drawing import write_display_overlay
-    from ..io import read_image, read_seeds, write_image, write_mask
+    from ..io import read_image, read_seeds
     from ..pipeline import split
 
     started = time.perf_counter()
@@ -144,19 +142,9 @@ def process_task(task: Task, stage=_no_stage) -> dict:
                            channel_axis=image.channel_axis,
                            rng=image_seed(task.base_seed, input_hash),
                            progress=lambda name: stage(f"splitting: {name}"))
-            out = Path(task.out_dir)
-            large = is_large_input(image.spatial_shape, task.config)
-            suffix = ".tif" if image.is_stack or large else ".png"
-            mask_name = task.mask + suffix
             stage("writing")
             t0 = time.perf_counter()
-            write_mask(result.mask, out / mask_name, tiled=large)
-            write_display_overlay(image, result.mask, out / task.overlay)
-            confidence_name = None
-            if task.confidence is not None and result.confidence is not None:
-                confidence_name = task.confidence + suffix
-                write_image(confidence_to_uint8(result.confidence), out / confidence_name,
-                            tiled=large)
+            mask_name, confidence_name = _write_outputs(task, image, result)
             io_seconds["write"] = time.perf_counter() - t0
         caught_messages = [one_line(w.message) for w in caught]
         record.update(json_ready(result.to_record()))
@@ -196,6 +184,26 @@ def process_task(task: Task, stage=_no_stage) -> dict:
         record["stage_seconds"] = {**stages, **io_seconds}  # split's stages, reading, writing
     record["seconds"] = time.perf_counter() - started
     return record
+
+
+def _write_outputs(task: Task, image, result) -> tuple:
+    """Write the mask, the overlay and (when asked) the confidence map of one split;
+    return the names of the mask and the confidence map (None when not written)."""
+    from ..confidence import confidence_to_uint8
+    from ..drawing import write_display_overlay
+    from ..io import write_image, write_mask
+
+    out = Path(task.out_dir)
+    large = is_large_input(image.spatial_shape, task.config)
+    suffix = ".tif" if image.is_stack or large else ".png"
+    mask_name = task.mask + suffix
+    write_mask(result.mask, out / mask_name, tiled=large)
+    write_display_overlay(image, result.mask, out / task.overlay)
+    confidence_name = None
+    if task.confidence is not None and result.confidence is not None:
+        confidence_name = task.confidence + suffix
+        write_image(confidence_to_uint8(result.confidence), out / confidence_name, tiled=large)
+    return mask_name, confidence_name
 
 
 def failed_record(task: Task, error: str) -> dict:
