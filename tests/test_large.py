@@ -59,6 +59,28 @@ def test_robust_range_is_numpys_percentile(dtype, seed, channels):
         assert hi == pytest.approx(ref_hi, rel=1e-12, abs=1e-9)
 
 
+@settings(max_examples=40, deadline=None)
+@given(st.sampled_from([np.float16, np.float32, np.float64]), st.integers(0, 2 ** 31 - 1),
+       st.sampled_from([1, 3]), st.sampled_from(["wide", "ties", "flat", "tiny"]))
+def test_float_robust_range_is_numpys_percentile_without_a_copy(dtype, seed, channels, kind):
+    # reference: numpy.percentile and ptp on the float64 copy (what prepare_image uses);
+    # values of both signs, many ties, one value, and values near zero (subnormals)
+    rng = np.random.default_rng(seed)
+    shape = (19, 13, channels)
+    arr = {"wide": lambda: rng.normal(0, 1e3, shape),
+           "ties": lambda: rng.integers(-3, 3, shape) * 0.5,
+           "flat": lambda: np.full(shape, -2.25),
+           "tiny": lambda: rng.normal(0, 1e-39, shape)}[kind]().astype(dtype)
+    lo, hi, contrast = large._robust_range(arr)
+    x = arr.astype(np.float64)
+    ref_lo, ref_hi = np.percentile(x, (0.5, 99.5))
+    if not ref_hi > ref_lo:
+        ref_lo, ref_hi = x.min(), x.max()
+    assert (lo, hi) == (pytest.approx(ref_lo, rel=1e-12, abs=1e-300),
+                        pytest.approx(ref_hi, rel=1e-12, abs=1e-300))
+    assert contrast == bool(np.ptp(x.reshape(-1, channels), axis=0).max() > 0)
+
+
 @settings(max_examples=20, deadline=None)
 @given(st.integers(0, 2 ** 31 - 1), st.sampled_from(list(NUMPY_TRANSFORMS)))
 def test_streamed_canonical_transform_is_the_full_paths(seed, name):
