@@ -931,7 +931,9 @@ def _mask_uint8(mask) -> np.ndarray:
         if mask.dtype.kind not in "uif":
             raise ValueError(f"mask must be boolean or numeric, got dtype {mask.dtype}")
         mask = mask != 0
-    return mask.astype(np.uint8) * np.uint8(255)
+    values = mask.astype(np.uint8)
+    values *= np.uint8(255)  # in place: one full-size copy of a large mask, not two
+    return values
 
 
 def write_mask(mask, path, *, tiled: bool | None = None) -> None:

@@ -227,3 +227,16 @@ def test_full_resolution_maps_are_compact_and_give_the_same_value():
     assert cut_value(wide.graph, sides) == pytest.approx(result.value, rel=1e-12)
     small = split(image[:100, :100], LARGE)
     assert small.labels.dtype == np.int64 and small.confidence.dtype == np.float64
+
+
+def test_confidence_bytes_in_row_chunks_are_the_whole_array_formula():
+    # reference: round(255 x confidence) on the whole float64 array at once (the formula
+    # documented for confidence maps); 3000 x 700 spans three row chunks
+    from segcut.confidence import confidence_to_uint8
+
+    rng = np.random.default_rng(11)
+    values = rng.random((3000, 700))
+    values[0, :5] = [0.5 / 255, 1.5 / 255, -0.2, 1.3, 254.5 / 255]  # halves and outside [0, 1]
+    expected = np.rint(255.0 * np.clip(values, 0.0, 1.0)).astype(np.uint8)
+    assert confidence_to_uint8(values).tobytes() == expected.tobytes()
+    assert confidence_to_uint8(values.astype(np.float32)).dtype == np.uint8
