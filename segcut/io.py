@@ -360,7 +360,7 @@ def _read_with_pillow(path, max_pixels: int, head: bytes, *, tiff_fallback=False
             if width < 1 or height < 1:
                 raise InputError(f"image has no pixels (size {width}x{height})", path=path)
             _too_many(width * height, max_pixels, path, (height, width),
-                      fmt="TIFF (a compression decoded whole, by Pillow)" if tiff_fallback
+                      fmt="TIFF (its compression decoded whole, by Pillow)" if tiff_fallback
                       else fmt)
             n_frames = getattr(img, "n_frames", 1)
             if fmt == "TIFF" and n_frames > 1:
@@ -547,6 +547,10 @@ def _decode_tiff(path, max_pixels: int, max_mapped_pixels: int, notes: list):
             try:
                 return _read_with_pillow(path, max_pixels, b"", tiff_fallback=True)
             except InputError as fallback:  # (Pillow decodes whole: max_pixels applies)
+                if "decoded whole" in fallback.message:
+                    raise InputError(f"{fallback.message}; with the imagecodecs package "
+                                     "installed this TIFF is read through a file mapping",
+                                     path=path) from None
                 raise InputError(
                     f"TIFF compression not supported ({_one_line(err)}; Pillow: "
                     f"{fallback.message})", path=path) from None

@@ -265,3 +265,24 @@ def test_cli_split_of_a_zarr_store(tmp_path):
     records = load_records(tmp_path / "run2")
     error = records["bad.zarr"]["error"]
     assert error.startswith(f"{bad}: not a readable Zarr") and "\n" not in error
+
+
+def test_tiff_decoded_whole_above_the_limit_says_what_reads_it_mapped(tmp_path):
+    # an LZW TIFF (written by Pillow, the reference writer) goes to Pillow when tifffile
+    # lacks imagecodecs: above max_pixels the refusal says how to read it mapped instead
+    pytest.importorskip("PIL")
+    from PIL import Image
+
+    try:
+        import imagecodecs  # noqa: F401
+    except ImportError:
+        pass
+    else:
+        pytest.skip("imagecodecs is installed: tifffile reads LZW itself (mapped)")
+    path = tmp_path / "lzw.tif"
+    Image.fromarray(np.zeros((60, 50), np.uint8)).save(path, compression="tiff_lzw")
+    with pytest.raises(InputError, match=r"TIFF \(its compression decoded whole, by Pillow\) "
+                                         r"image of 3000 pixels .* imagecodecs package "
+                                         r"installed this TIFF is read through a file mapping"):
+        io.read_image(path, max_pixels=1000)
+    assert io.read_image(path).array.shape == (60, 50)
