@@ -490,7 +490,9 @@ def _read_zarr(path, max_pixels: int, max_mapped_pixels: int) -> ImageData:
     channel_axis, alpha = None, None
     if channels:
         array, channel_axis, alpha = _tiff_channels(array, "rgb", path, notes)
-    array = _normalise_dtype(array, path, notes, colour=channel_axis is not None)
+    mapped = isinstance(array, np.memmap) or isinstance(getattr(array, "base", None), np.memmap)
+    array = _normalise_dtype(array, path, notes, colour=channel_axis is not None,
+                             in_place=mapped)
     readers = tuple((fy, fx, _level_pixels(read, path, channels)) for fy, fx, read in levels)
     return ImageData(np.ascontiguousarray(array), channel_axis, _as_str(path), "ZARR", mode,
                      tuple(notes), alpha, readers)
@@ -652,8 +654,10 @@ def _cmyk_to_rgb(array: np.ndarray) -> np.ndarray:
     return rgb
 
 
-def _normalise_dtype(array: np.ndarray, path, notes: list, *, colour: bool) -> np.ndarray:
-    """Integers to uint8/uint16 (or float64), floats to float32/64, non-finite values handled."""
+def _normalise_dtype(array: np.ndarray, path, notes: list, *, colour: bool,
+                     in_place: bool = False) -> np.ndarray:
+    """Integers to uint8/uint16 (or float64), floats to float32/64, non-finite values handled
+    (``in_place``: replaced in ``array`` itself, a mapping of our own, not in a copy)."""
     if array.dtype.kind in "uib":
         return _integer_to_supported(array)
     if array.dtype.kind != "f":
@@ -668,7 +672,8 @@ def _normalise_dtype(array: np.ndarray, path, notes: list, *, colour: bool) -> n
         return array
     if not finite.any():
         raise InputError("image has no finite value (all NaN or infinite)", path=path)
-    array = array.copy()
+    if not (in_place and array.flags.writeable):
+        array = array.copy()
     bad = ~finite
     if colour:
         for c in range(array.shape[-1]):

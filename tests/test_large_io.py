@@ -286,3 +286,19 @@ def test_tiff_decoded_whole_above_the_limit_says_what_reads_it_mapped(tmp_path):
                                          r"installed this TIFF is read through a file mapping"):
         io.read_image(path, max_pixels=1000)
     assert io.read_image(path).array.shape == (60, 50)
+
+
+def test_mapped_float_zarr_gets_its_non_finite_values_replaced_in_the_mapping(tmp_path):
+    # reference: numpy's median of the finite values of each channel (the documented rule)
+    values = np.random.default_rng(7).random((50, 40, 3)).astype(np.float32)
+    values[3, 4, 0] = np.nan
+    values[10, 11, 2] = np.inf
+    store = tmp_path / "f.zarr"
+    zarr.open_array(str(store), mode="w", shape=values.shape, chunks=(16, 16, 3),
+                    dtype="f4")[:] = values
+    data = io.read_image(store, max_pixels=1000)
+    assert not data.array.flags.owndata and data.array.dtype == np.float32
+    assert data.array[3, 4, 0] == np.median(values[..., 0][np.isfinite(values[..., 0])])
+    assert data.array[10, 11, 2] == np.median(values[..., 2][np.isfinite(values[..., 2])])
+    assert np.isfinite(data.array).all() and any("NaN or infinite" in w for w in data.warnings)
+    assert np.isnan(zarr.open_array(str(store), mode="r")[3, 4, 0])  # the store is untouched
