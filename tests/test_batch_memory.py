@@ -144,3 +144,45 @@ def test_dask_holds_tasks_back_when_the_budget_holds_one_image(tmp_path):
         records.append(record)
     assert seen_at_first <= 2  # one submitted, one held back
     assert len(records) == 4 and all(r["status"] == "ok" for r in records)
+
+
+_MEASURE_FILE = """
+import json, sys
+import numpy as np
+import tifffile
+from segcut import SplitConfig, io, split
+from segcut.batch.executors import Task, process_task
+side, limit, folder = int(sys.argv[1]), int(sys.argv[2]), sys.argv[3]
+io.LAZY_PIXELS = 1000  # read through the file mapping, as a large TIFF is
+warm = np.zeros((96, 96, 3)); warm[30:60, 30:60] = 1.0
+split(warm, SplitConfig(max_graph_pixels=2000))
+rng = np.random.default_rng(0)
+yy, xx = np.mgrid[:side, :side] / side
+inside = (yy - 0.5) ** 2 + (xx - 0.45) ** 2 < 0.08
+image = np.where(inside[..., None], [170.0, 100, 80], [90.0, 110, 150])
+image = np.clip(image + rng.normal(0, 30, image.shape), 0, 255).astype(np.uint8)
+tifffile.imwrite(folder + "/in.tif", image, photometric="rgb", tile=(256, 256), compression="zlib")
+del yy, xx, inside, image
+with open("/proc/self/clear_refs", "w") as fh:
+    fh.write("5")
+config = SplitConfig(max_graph_pixels=limit)
+record = process_task(Task(path=folder + "/in.tif", input="in.tif", out_dir=folder, mask="m",
+                           overlay="o.png", config=config, config_hash="x", input_hash=None,
+                           seeds_path=None, seeds_hash=None, base_seed=0))
+assert record["status"] == "ok" and record["mask"] == "m.tif", record
+with open("/proc/self/status") as fh:
+    peak_kib = next(int(line.split()[1]) for line in fh if line.startswith("VmHWM:"))
+print(json.dumps(peak_kib * 1024))
+"""
+
+
+@pytest.mark.skipif(sys.platform != "linux", reason="the peak resident set is read from Linux's /proc")
+def test_estimate_holds_for_a_worker_reading_a_mapped_tiff(tmp_path):
+    # a worker's whole task (mapped read, split, tiled mask and overlay written) against
+    # the estimate, measured as above (VmHWM, the operating system's count)
+    side, limit = 2400, 400_000  # 5.8 Mpixel, reduced by 4: the full-resolution term counts
+    out = subprocess.run([sys.executable, "-c", _MEASURE_FILE, str(side), str(limit),
+                          str(tmp_path)], capture_output=True, text=True, check=True)
+    measured = json.loads(out.stdout.strip().splitlines()[-1])
+    estimate = estimate_peak_bytes((side, side), SplitConfig(max_graph_pixels=limit))
+    assert measured / FACTOR <= estimate <= measured * FACTOR, (measured / GIB, estimate / GIB)

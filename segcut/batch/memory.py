@@ -16,7 +16,11 @@ estimate: 512x512 0.26 (0.30); 1 Mpixel full path 0.46 (0.45), 4 Mpixel full pat
 reads the file (large TIFF and Zarr through a mapping whose pages count) and writes
 the mask and overlay while the result is held, so the large-path term is fitted to
 ``segcut split FILE --jobs 1`` of tiled TIFF and Zarr files: 36 Mpixel 0.95-0.97
-(0.97), 100 Mpixel 2.24 (2.25). ``tests/test_batch_memory.py`` checks the estimate against a measured peak.
+(0.97), 100 Mpixel 2.24 (2.25). Between 2 and 10 Mpixel it estimates low (measured:
+``split`` of a 1.96 Mpixel array reduced by 3, 0.37 (0.30); a worker's task on a mapped
+5.8 Mpixel TIFF reduced by 4, 0.48 (0.37), 9 Mpixel reduced by 5, 0.55 (0.43)): fixed
+costs (overlay drawing, tiles) not in the two terms; :data:`BUDGET_FRACTION` leaves
+that much room. ``tests/test_batch_memory.py`` checks the estimate against a measured peak.
 
 :func:`memory_workers` caps the number of worker processes of a batch (the process
 pool's ``jobs``, a local Dask cluster's workers) at what the memory budget (by default
