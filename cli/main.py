@@ -17,7 +17,7 @@ from .common import (EXIT_FAILED, EXIT_INTERRUPTED, EXIT_UNEXPECTED, EXIT_USAGE,
                      UsageError, write_json)
 from .options import (SPLIT_ONLY_OPTIONS, add_config_options, config_overrides, finite_float,
                       join_negative_values, non_negative_float, non_negative_int,
-                      positive_float, positive_int)
+                      memory_gib, positive_float, positive_int)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -197,9 +197,11 @@ def _add_split_parser(sub) -> None:
     p.add_argument("--jobs", "-j", type=positive_int, default=None, metavar="N",
                    help="worker processes of the local pool (default: all cores); not with "
                         "--dask-local or --scheduler")
-    p.add_argument("--memory-budget", type=positive_float, default=None, metavar="GIB",
-                   help="memory the local workers may use together (default: 80%% of the "
-                        "available memory); --jobs is lowered to fit the largest image")
+    p.add_argument("--memory-budget", type=memory_gib, default=None, metavar="GIB",
+                   help="memory the workers may use together (default: 80%% of the "
+                        "available memory; for --scheduler, of the workers' memory limits); "
+                        "--jobs and --dask-local are lowered to fit the largest image and "
+                        "Dask holds images back while it is used; 'inf' for no limit")
     p.add_argument("--force", action="store_true",
                    help="redo images finished by an earlier run, and take over a folder "
                         "holding another configuration's results (its records are emptied)")

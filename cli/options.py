@@ -40,6 +40,13 @@ def positive_float(text: str) -> float:
     return number(text, float, minimum=0.0, strict=True)
 
 
+def memory_gib(text: str) -> float:
+    """A positive number of GiB, or ``inf`` (no limit)."""
+    if text.strip().lower() in ("inf", "infinity"):
+        return math.inf
+    return positive_float(text)
+
+
 def non_negative_float(text: str) -> float:
     return number(text, float, minimum=0.0)
 

@@ -79,6 +79,9 @@ OUTPUT_COLUMNS = (
            meaning="share of the image's outermost pixels that are foreground"),
     Column("seconds", "seconds", "num", ".2f", "seconds",
            meaning="wall time of the image in its worker"),
+    Column("mask", "mask", "text", "", "mask", in_report=False, optional=True,
+           meaning="the mask file written: masks/<name>.png, or .tif (in tiles) for 3-D "
+                   "stacks and images above max_graph_pixels"),
     Column("warnings", "warnings", "list", "", "warnings", in_report=False,
            meaning="notes on the input or the split, one line each"),
     Column("error", "error", "text", "", "error", in_report=False,

@@ -360,5 +360,16 @@ def confidence_to_uint8(confidence) -> np.ndarray:
     >>> confidence_to_uint8(np.array([[0.0, 0.5, 0.9, 1.0]]))
     array([[  0, 128, 230, 255]], dtype=uint8)
     """
-    confidence = np.asarray(confidence, dtype=np.float64)
-    return np.rint(255.0 * np.clip(confidence, 0.0, 1.0)).astype(np.uint8)
+    confidence = np.asarray(confidence)
+    if confidence.ndim < 2:
+        return _to_uint8(confidence)
+    out = np.empty(confidence.shape, dtype=np.uint8)
+    step = max(1, (1 << 20) // max(1, confidence[0].size))  # rows of about a megapixel
+    for r0 in range(0, confidence.shape[0], step):
+        out[r0:r0 + step] = _to_uint8(confidence[r0:r0 + step])
+    return out
+
+
+def _to_uint8(confidence):
+    x = np.asarray(confidence, dtype=np.float64)
+    return np.rint(255.0 * np.clip(x, 0.0, 1.0)).astype(np.uint8)

@@ -266,25 +266,74 @@ def reduced_for_display(image, mask, max_pixels: int, *, channel_axis: int | Non
     if mask.ndim != 2 or rows * cols <= max_pixels:
         return image, mask
     f = reduction_factor((rows, cols), max_pixels)
+    return _block_average(image, f), _block_average(mask, f)
+
+
+def _block_average(source, f):
+    """``source`` (M, N[, C]) averaged over f x f blocks (last row and column repeated up
+    to a multiple of f), in row chunks: booleans by majority (ties: True), integers
+    rounded back to their dtype."""
+    rows, cols = source.shape[:2]
     m, n = -(-rows // f), -(-cols // f)
-    extra = image.shape[2:]
-    out = np.empty((m, n) + extra, dtype=image.dtype)
-    out_mask = np.empty((m, n), dtype=bool)
+    out = np.empty((m, n) + source.shape[2:], dtype=source.dtype)
     step = max(1, (1 << 22) // max(cols * f, 1))
     for i0 in range(0, m, step):
         i1 = min(m, i0 + step)
-        for source, target, kind in ((image, out, "image"), (mask, out_mask, "mask")):
-            block = source[i0 * f:i1 * f].astype(np.float64)
-            pad = [(0, (i1 - i0) * f - block.shape[0]), (0, n * f - cols)]
-            block = np.pad(block, pad + [(0, 0)] * (block.ndim - 2), mode="edge")
-            mean = block.reshape((i1 - i0, f, n, f) + block.shape[2:]).mean(axis=(1, 3))
-            if kind == "mask":
-                target[i0:i1] = mean >= 0.5
-            elif np.issubdtype(image.dtype, np.integer) or image.dtype == np.bool_:
-                target[i0:i1] = np.rint(mean)
-            else:
-                target[i0:i1] = mean
-    return out, out_mask
+        block = source[i0 * f:i1 * f].astype(np.float64)
+        pad = [(0, (i1 - i0) * f - block.shape[0]), (0, n * f - cols)]
+        block = np.pad(block, pad + [(0, 0)] * (block.ndim - 2), mode="edge")
+        mean = block.reshape((i1 - i0, f, n, f) + block.shape[2:]).mean(axis=(1, 3))
+        if source.dtype == np.bool_:
+            out[i0:i1] = mean >= 0.5
+        elif np.issubdtype(source.dtype, np.integer):
+            out[i0:i1] = np.rint(mean)
+        else:
+            out[i0:i1] = mean
+    return out
+
+
+def write_display_overlay(image_data, mask, path, *, legend: bool = True,
+                          max_pixels: int = OVERLAY_MAX_PIXELS) -> None:
+    """:func:`write_overlay` of an :class:`~segcut.io.ImageData` and its mask.
+
+    A 2-D image of more than ``max_pixels`` pixels that has stored lower resolutions
+    (OME-Zarr multiscales, :attr:`~segcut.io.ImageData.levels`) is drawn from the
+    largest level that fits in ``max_pixels`` and has an integer factor (the mask
+    reduced to it by majority of each block), so the full-resolution pixels are not
+    read again; otherwise from :func:`reduced_for_display`.
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> from segcut.io import ImageData, read_image
+    >>> full = np.zeros((8, 8), np.uint8)
+    >>> level = (2.0, 2.0, lambda: np.full((4, 4), 200, np.uint8))
+    >>> data = ImageData(full, None, None, "ZARR", "yx uint8", (), None, (level,))
+    >>> path = os.path.join(tempfile.mkdtemp(), "o.png")
+    >>> write_display_overlay(data, np.zeros((8, 8), bool), path, legend=False, max_pixels=16)
+    >>> int(read_image(path).array[0, 0, 0])  # drawn from the stored level
+    200
+    """
+    rows, cols = mask.shape if mask.ndim == 2 else (0, 0)
+    for fy, fx, read in sorted(getattr(image_data, "levels", ()), key=lambda level: level[0]):
+        f = int(round(fy))
+        if rows * cols <= max_pixels or fy != fx or abs(fy - f) > 1e-9 or f < 2:
+            continue
+        m, n = -(-rows // f), -(-cols // f)
+        if m * n > max_pixels:
+            continue
+        picture = read()
+        if picture.ndim != mask.ndim + (image_data.channel_axis is not None) \
+                or abs(picture.shape[0] - m) > 1 or abs(picture.shape[1] - n) > 1:
+            continue  # not the shape a reduction by f gives: use the full image
+        small = _block_average(np.asarray(mask, dtype=bool), f)
+        small = np.pad(small, [(0, max(0, picture.shape[0] - m)), (0, max(0, picture.shape[1] - n))],
+                       mode="edge")[:picture.shape[0], :picture.shape[1]]
+        write_overlay(picture, small, path, channel_axis=image_data.channel_axis,
+                      legend=legend, max_pixels=None)
+        return
+    write_overlay(image_data.array, mask, path, channel_axis=image_data.channel_axis,
+                  legend=legend, max_pixels=max_pixels)
 
 
 def write_overlay(image, mask, path, *, channel_axis: int | None = None,

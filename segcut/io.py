@@ -32,13 +32,18 @@ Rules, in one place:
 - **Alpha** is dropped, not composited: each pixel keeps its stored colour. When some
   pixels are not fully opaque a note is added to :attr:`ImageData.warnings`; the
   alpha values themselves stay available as :attr:`ImageData.alpha`.
-- **Pixel limit**: images with more than :data:`MAX_PIXELS` pixels (all pages of a
-  stack together) are refused before they are decoded, as a guard against
-  decompression bombs. Pass ``max_pixels=`` to change it.
-- **Large TIFF**: above :data:`LAZY_PIXELS` pixels the pixels are mapped from the file
-  (uncompressed, contiguous data: nothing is read until used) or decoded into a
-  temporary file mapping (tiled, compressed, BigTIFF), so they do not take anonymous
-  memory; :func:`segcut.split` then streams over them (:mod:`segcut.large`).
+- **Pixel limit**: images decoded whole into memory (PNG, JPEG, BMP, TIFF and Zarr
+  stacks) with more than :data:`MAX_PIXELS` pixels (all pages of a stack together) are
+  refused before they are decoded, as a guard against decompression bombs. Pass
+  ``max_pixels=`` to change it.
+- **Large TIFF and Zarr**: 2-D images above :data:`LAZY_PIXELS` pixels (or above
+  ``max_pixels``) are mapped from the file (uncompressed, contiguous TIFF data: nothing
+  is read until used) or decoded tile by tile into a temporary file mapping (tiled or
+  compressed TIFF, BigTIFF, Zarr), so they do not take anonymous memory;
+  :func:`segcut.split` then streams over them (:mod:`segcut.large`). Such images are
+  read up to :data:`MAX_MAPPED_PIXELS` pixels (``max_mapped_pixels=``); the mapping
+  needs that much room in the temporary folder (``TMPDIR``) when the data is compressed.
+- **Zarr and OME-Zarr** (a folder): see :mod:`segcut.io_zarr` for the layouts read.
 - **Non-finite values** (float images): an image with no finite value is refused; when
   only some values are NaN or infinite they are replaced by the median of the finite
   values of the same channel, and a note is added to the warnings.
@@ -86,6 +91,8 @@ from .files import (_cannot_write, append_json_line, append_line, atomic_path,  
 __all__ = [
     "IMAGE_SUFFIXES",
     "MAX_PIXELS",
+    "MAX_MAPPED_PIXELS",
+    "LAZY_PIXELS",
     "SEED_UNKNOWN",
     "SEED_FOREGROUND",
     "SEED_BACKGROUND",
@@ -107,6 +114,8 @@ __all__ = [
 #: File name endings of the image types :func:`read_image` reads (lower case), for
 #: folder scans. Reading itself recognises the format by content.
 IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
+#: Folders read as one image: Zarr stores (named ``*.zarr`` or holding Zarr metadata).
+FOLDER_IMAGE_SUFFIXES = (".zarr",)
 
 #: Largest number of pixels (all pages together) :func:`read_image` accepts by default:
 #: 64 megapixels, a guard against decompression bombs.
@@ -114,6 +123,8 @@ MAX_PIXELS = 64 * 2**20
 #: TIFF images with more pixels are mapped from the file (or a temporary file), and
 #: TIFF files with more pixels are written in 256 x 256 tiles.
 LAZY_PIXELS = 16 * 2**20
+#: Largest 2-D TIFF or Zarr image read through a file mapping by default (1 Gi pixels).
+MAX_MAPPED_PIXELS = 2**30
 
 #: Labels of a seed array (:func:`read_seeds`).
 SEED_UNKNOWN, SEED_FOREGROUND, SEED_BACKGROUND = 0, 1, 2
@@ -137,7 +148,7 @@ class ImageData:
     path : str or None
         The file, as given to the reader.
     format : str
-        ``"PNG"``, ``"JPEG"``, ``"TIFF"`` or ``"BMP"``.
+        ``"PNG"``, ``"JPEG"``, ``"TIFF"``, ``"BMP"`` or ``"ZARR"``.
     mode : str
         How the pixels were stored: a Pillow mode (``"L"``, ``"RGB"``, ``"RGBA"``,
         ``"P"``, ``"CMYK"``, ``"I;16"``...) or, for TIFF, ``"<photometric> <dtype>"``
@@ -149,6 +160,10 @@ class ImageData:
         The dropped alpha channel (spatial shape of :attr:`array`, in the file's own
         range: 0 is fully transparent), or None when the file has none. It is not
         applied to :attr:`array`; :func:`read_seeds` uses it.
+    levels : tuple of (float, float, callable)
+        Lower resolutions stored beside the image (OME-Zarr multiscales):
+        ``(factor_y, factor_x, read)``, where ``read()`` returns that level's pixels laid
+        out as :attr:`array`. Empty for other formats.
 
     Examples
     --------
@@ -166,6 +181,7 @@ class ImageData:
     mode: str
     warnings: tuple = ()
     alpha: np.ndarray | None = None
+    levels: tuple = ()
 
     @property
     def dtype(self) -> np.dtype:
@@ -205,16 +221,22 @@ def is_image_path(path) -> bool:
     return Path(path).suffix.lower() in IMAGE_SUFFIXES
 
 
-def read_image(path, *, max_pixels: int = MAX_PIXELS) -> ImageData:
-    """Read an image file (PNG, JPEG, TIFF, BMP) into an array.
+def read_image(path, *, max_pixels: int = MAX_PIXELS,
+               max_mapped_pixels: int = MAX_MAPPED_PIXELS) -> ImageData:
+    """Read an image file (PNG, JPEG, TIFF, BMP) or a Zarr store into an array.
 
     Parameters
     ----------
     path : str or os.PathLike
-        The file. Its format is recognised by content, not by its name.
+        The file (its format is recognised by content, not by its name), or a Zarr
+        store's folder (a Zarr array or an OME-Zarr image, :mod:`segcut.io_zarr`).
     max_pixels : int, optional
-        Refuse images with more pixels than this (all pages together) before
-        decoding them. Default :data:`MAX_PIXELS`.
+        Refuse images decoded whole into memory with more pixels than this (all pages
+        together) before decoding them. Default :data:`MAX_PIXELS`.
+    max_mapped_pixels : int, optional
+        Refuse 2-D TIFF and Zarr images read through a file mapping (those above
+        :data:`LAZY_PIXELS` or ``max_pixels`` pixels) with more pixels than this.
+        Default :data:`MAX_MAPPED_PIXELS`.
 
     Returns
     -------
@@ -241,12 +263,18 @@ def read_image(path, *, max_pixels: int = MAX_PIXELS) -> ImageData:
     >>> data.format, data.mode, data.channel_axis
     ('PNG', 'L', None)
     """
-    if not isinstance(max_pixels, (int, np.integer)) or max_pixels < 1:
-        raise ValueError(f"max_pixels must be a positive integer, got {max_pixels!r}")
+    for name, value in (("max_pixels", max_pixels), ("max_mapped_pixels", max_mapped_pixels)):
+        if not isinstance(value, (int, np.integer)) or value < 1:
+            raise ValueError(f"{name} must be a positive integer, got {value!r}")
+    limits = (int(max_pixels), int(max_mapped_pixels))
+    from .io_zarr import is_zarr_store
+
+    if is_zarr_store(path):
+        return _read_zarr(path, *limits)
     head = _open_check(path)
     if head[:4] in _TIFF_MAGIC:
-        return _read_tiff(path, int(max_pixels))
-    return _read_with_pillow(path, int(max_pixels), head)
+        return _read_tiff(path, *limits)
+    return _read_with_pillow(path, limits[0], head)
 
 
 def _open_check(path) -> bytes:
@@ -273,14 +301,23 @@ def _open_check(path) -> bytes:
     return head
 
 
-def _too_many(n_pixels: int, max_pixels: int, path, shape) -> None:
-    if n_pixels > max_pixels:
+def _too_many(n_pixels: int, max_pixels: int, path, shape, *, fmt: str | None = None,
+              mapped: bool = False) -> None:
+    """One-line refusal of an image above a pixel limit: which limit, and what to do."""
+    if n_pixels <= max_pixels:
+        return
+    if mapped:
         raise InputError(
             f"image of {n_pixels} pixels (shape {tuple(shape)}) exceeds the limit of "
-            f"{max_pixels} pixels (a guard against decompression bombs; raise max_pixels "
-            "to read it)",
-            path=path,
-        )
+            f"{max_pixels} pixels for images read through a file mapping (raise "
+            "max_mapped_pixels to read it)", path=path)
+    whole = f"{fmt} image" if fmt else "image"
+    raise InputError(
+        f"{whole} of {n_pixels} pixels (shape {tuple(shape)}) exceeds the limit of "
+        f"{max_pixels} pixels for images decoded whole into memory (a guard against "
+        f"decompression bombs); save it as a 2-D TIFF (uncompressed, zlib or tiled) or a Zarr "
+        f"array, read through a file mapping up to {MAX_MAPPED_PIXELS} pixels, or raise "
+        "max_pixels", path=path)
 
 
 def _read_with_pillow(path, max_pixels: int, head: bytes, *, tiff_fallback=False) -> ImageData:
@@ -322,10 +359,13 @@ def _read_with_pillow(path, max_pixels: int, head: bytes, *, tiff_fallback=False
             width, height = img.size
             if width < 1 or height < 1:
                 raise InputError(f"image has no pixels (size {width}x{height})", path=path)
-            _too_many(width * height, max_pixels, path, (height, width))
+            _too_many(width * height, max_pixels, path, (height, width),
+                      fmt="TIFF (its compression decoded whole, by Pillow)" if tiff_fallback
+                      else fmt)
             n_frames = getattr(img, "n_frames", 1)
             if fmt == "TIFF" and n_frames > 1:
-                _too_many(width * height * n_frames, max_pixels, path, (n_frames, height, width))
+                _too_many(width * height * n_frames, max_pixels, path, (n_frames, height, width),
+                          fmt="3-D TIFF")
             elif n_frames > 1:
                 notes.append(f"file holds {n_frames} pictures; the first was read")
             mode = img.mode
@@ -413,9 +453,9 @@ def _integer_to_supported(values: np.ndarray) -> np.ndarray:
     return values.astype(np.float64)
 
 
-def _read_tiff(path, max_pixels: int) -> ImageData:
+def _read_tiff(path, max_pixels: int, max_mapped_pixels: int) -> ImageData:
     notes: list[str] = []
-    decoded = _decode_tiff(path, max_pixels, notes)
+    decoded = _decode_tiff(path, max_pixels, max_mapped_pixels, notes)
     if isinstance(decoded, ImageData):
         return decoded  # read by Pillow instead
     array, axes, shape, photometric, colormap = decoded
@@ -440,7 +480,35 @@ def _read_tiff(path, max_pixels: int) -> ImageData:
                      tuple(notes), alpha)
 
 
-def _decode_tiff(path, max_pixels: int, notes: list):
+def _read_zarr(path, max_pixels: int, max_mapped_pixels: int) -> ImageData:
+    from .io_zarr import read_zarr
+
+    notes: list[str] = []
+    array, channels, mode, levels = read_zarr(path, max_pixels=max_pixels,
+                                              lazy_pixels=LAZY_PIXELS,
+                                              max_mapped_pixels=max_mapped_pixels)
+    channel_axis, alpha = None, None
+    if channels:
+        array, channel_axis, alpha = _tiff_channels(array, "rgb", path, notes)
+    mapped = isinstance(array, np.memmap) or isinstance(getattr(array, "base", None), np.memmap)
+    array = _normalise_dtype(array, path, notes, colour=channel_axis is not None,
+                             in_place=mapped)
+    readers = tuple((fy, fx, _level_pixels(read, path, channels)) for fy, fx, read in levels)
+    return ImageData(np.ascontiguousarray(array), channel_axis, _as_str(path), "ZARR", mode,
+                     tuple(notes), alpha, readers)
+
+
+def _level_pixels(read, path, channels):
+    """A reader of a lower-resolution level giving pixels as :attr:`ImageData.array`."""
+    def level():
+        values = read()
+        if channels:
+            values = _tiff_channels(values, "rgb", path, [])[0]
+        return _normalise_dtype(values, path, [], colour=bool(channels) and channels > 2)
+    return level
+
+
+def _decode_tiff(path, max_pixels: int, max_mapped_pixels: int, notes: list):
     """The first series' pixels and header facts ``(array, axes, shape, photometric,
     colormap)``, or the :class:`ImageData` Pillow read when tifffile lacks the codec."""
     import tifffile
@@ -457,10 +525,17 @@ def _decode_tiff(path, max_pixels: int, notes: list):
             spatial = [n for a, n in zip(axes, shape) if a != "S"]
             if 0 in shape:
                 raise InputError(f"image has no pixels (shape {shape})", path=path)
-            _too_many(math.prod(spatial), max_pixels, path, shape)
-            # large images: mapped from the file when stored contiguously, else
+            pixels = math.prod(spatial)
+            # large 2-D images: mapped from the file when stored contiguously, else
             # decoded into a temporary file mapping (reclaimable, not anonymous memory)
-            out = "memmap" if math.prod(spatial) > LAZY_PIXELS else None
+            one_plane = math.prod(spatial[:-2]) == 1
+            mapped = one_plane and (pixels > LAZY_PIXELS or pixels > max_pixels)
+            if mapped:
+                _too_many(pixels, max_mapped_pixels, path, shape, mapped=True)
+            else:
+                _too_many(pixels, max_pixels, path, shape,
+                          fmt="TIFF" if one_plane else "3-D TIFF")
+            out = "memmap" if mapped else None
             return (series.asarray(out=out), axes, shape, _photometric_name(page),
                     getattr(page, "colormap", None))
     except InputError:
@@ -473,7 +548,11 @@ def _decode_tiff(path, max_pixels: int, notes: list):
             # (LZW, JPEG, CCITT...): Pillow reads most of those
             try:
                 return _read_with_pillow(path, max_pixels, b"", tiff_fallback=True)
-            except InputError as fallback:
+            except InputError as fallback:  # (Pillow decodes whole: max_pixels applies)
+                if "decoded whole" in fallback.message:
+                    raise InputError(f"{fallback.message}; with the imagecodecs package "
+                                     "installed this TIFF is read through a file mapping",
+                                     path=path) from None
                 raise InputError(
                     f"TIFF compression not supported ({_one_line(err)}; Pillow: "
                     f"{fallback.message})", path=path) from None
@@ -513,7 +592,7 @@ def _tiff_channels(array, photometric: str, path, notes: list):
     if n_channels == 1:
         return array[..., 0], None, None
     if n_channels == 2:
-        notes.append("alpha channel dropped (gray + alpha TIFF)")
+        notes.append("alpha channel dropped (gray + alpha)")
         return array[..., 0], None, np.ascontiguousarray(array[..., 1])
     if photometric == "separated" and n_channels == 4:
         return _cmyk_to_rgb(array), -1, None
@@ -575,8 +654,10 @@ def _cmyk_to_rgb(array: np.ndarray) -> np.ndarray:
     return rgb
 
 
-def _normalise_dtype(array: np.ndarray, path, notes: list, *, colour: bool) -> np.ndarray:
-    """Integers to uint8/uint16 (or float64), floats to float32/64, non-finite values handled."""
+def _normalise_dtype(array: np.ndarray, path, notes: list, *, colour: bool,
+                     in_place: bool = False) -> np.ndarray:
+    """Integers to uint8/uint16 (or float64), floats to float32/64, non-finite values handled
+    (``in_place``: replaced in ``array`` itself, a mapping of our own, not in a copy)."""
     if array.dtype.kind in "uib":
         return _integer_to_supported(array)
     if array.dtype.kind != "f":
@@ -591,7 +672,8 @@ def _normalise_dtype(array: np.ndarray, path, notes: list, *, colour: bool) -> n
         return array
     if not finite.any():
         raise InputError("image has no finite value (all NaN or infinite)", path=path)
-    array = array.copy()
+    if not (in_place and array.flags.writeable):
+        array = array.copy()
     bad = ~finite
     if colour:
         for c in range(array.shape[-1]):
@@ -777,7 +859,7 @@ def _png_bytes(array: np.ndarray, compress_level: int = 6) -> bytes:
 
 
 def write_image(array, path, *, channel_axis: int | None = None,
-                compress_level: int = 6) -> None:
+                compress_level: int = 6, tiled: bool | None = None) -> None:
     """Write an image array atomically with reproducible bytes.
 
     ``.png`` files take 2-D gray uint8/uint16 or ``(M, N, 3)`` RGB uint8 arrays;
@@ -793,7 +875,9 @@ def write_image(array, path, *, channel_axis: int | None = None,
         Axis holding RGB channels (moved last); None for gray images and stacks.
     compress_level : int, optional
         PNG zlib level, 0 (fastest, largest) to 9; 6 by default. TIFF files are
-        always zlib-compressed at tifffile's default level, in 256 x 256 tiles for
+        always zlib-compressed at tifffile's default level.
+    tiled : bool or None, optional
+        TIFF only: write a 2-D image in 256 x 256 tiles. None (default): tiles for
         2-D images of more than :data:`LAZY_PIXELS` pixels.
 
     Raises
@@ -838,7 +922,9 @@ def write_image(array, path, *, channel_axis: int | None = None,
             raise ValueError(f"expected a 2-D image or a 3-D stack, got shape {array.shape}")
         import tifffile
 
-        tiled = spatial == 2 and array.shape[0] * array.shape[1] > LAZY_PIXELS
+        if tiled is None:
+            tiled = array.shape[0] * array.shape[1] > LAZY_PIXELS
+        tiled = bool(tiled) and spatial == 2
         with atomic_path(path) as tmp, _cannot_write(path):
             tifffile.imwrite(tmp, np.ascontiguousarray(array),
                              photometric="rgb" if colour else "minisblack",
@@ -854,10 +940,12 @@ def _mask_uint8(mask) -> np.ndarray:
         if mask.dtype.kind not in "uif":
             raise ValueError(f"mask must be boolean or numeric, got dtype {mask.dtype}")
         mask = mask != 0
-    return mask.astype(np.uint8) * np.uint8(255)
+    values = mask.astype(np.uint8)
+    values *= np.uint8(255)  # in place: one full-size copy of a large mask, not two
+    return values
 
 
-def write_mask(mask, path) -> None:
+def write_mask(mask, path, *, tiled: bool | None = None) -> None:
     """Write a two-region mask atomically: 0 background, 255 foreground.
 
     A 2-D mask is written as an 8-bit gray PNG (or TIFF when ``path`` ends in
@@ -871,6 +959,8 @@ def write_mask(mask, path) -> None:
         Boolean, or numbers where anything other than 0 is foreground.
     path : str or os.PathLike
         The file.
+    tiled : bool or None, optional
+        For a ``.tif`` name, as in :func:`write_image` (ignored for PNG).
 
     Raises
     ------
@@ -892,7 +982,7 @@ def write_mask(mask, path) -> None:
     suffix = Path(path).suffix.lower()
     if values.ndim == 3 and suffix == ".png":
         raise ValueError(f"a 3-D mask (shape {values.shape}) is written as TIFF; use a .tif name")
-    write_image(values, path)
+    write_image(values, path, tiled=tiled)
 
 
 # ----------------------------------------------------------------------------- helpers

@@ -387,8 +387,24 @@ def test_pixel_limit_below_pillows_own(tmp_path):
     path.write_bytes(_png(struct.pack(">IIBBBBB", 9000, 9000, 1, 0, 0, 0, 0),
                           zlib.compress(b"\x00" * 64)))
     assert 9000 * 9000 > MAX_PIXELS
-    with pytest.raises(InputError, match="exceeds the limit of 67108864 pixels"):
+    refusal = ("PNG image of 81000000 pixels .* exceeds the limit of 67108864 pixels for "
+               "images decoded whole into memory .* save it as a 2-D TIFF .* or a Zarr array")
+    with pytest.raises(InputError, match=refusal) as info:
         read_image(path)
+    _check_one_line(info.value, path)
+
+
+def test_tiff_above_the_pixel_limit_is_read_through_a_file_mapping(tmp_path):
+    # The same 9000 x 9000 size as a tiled, compressed TIFF (written by tifffile, the
+    # reference writer): read, as a view of a file mapping, not refused.
+    path = tmp_path / "big.tif"
+    values = np.zeros((9000, 9000), np.uint8)
+    values[4000:5000, 100:200] = 7
+    tifffile.imwrite(path, values, tile=(512, 512), compression="zlib", photometric="minisblack")
+    del values
+    data = read_image(path)
+    assert data.array.shape == (9000, 9000) and not data.array.flags.owndata
+    assert int(data.array[4500, 150]) == 7 and int(data.array.sum(dtype=np.int64)) == 7 * 100000
 
 
 def test_pixel_limit_tiff_stack(tmp_path):

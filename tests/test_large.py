@@ -7,6 +7,8 @@ the square), the known truth of generated scenes, and the full-resolution path.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -55,6 +57,28 @@ def test_robust_range_is_numpys_percentile(dtype, seed, channels):
     if ref_hi > ref_lo:
         assert lo == pytest.approx(ref_lo, rel=1e-12, abs=1e-9)
         assert hi == pytest.approx(ref_hi, rel=1e-12, abs=1e-9)
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.sampled_from([np.float16, np.float32, np.float64]), st.integers(0, 2 ** 31 - 1),
+       st.sampled_from([1, 3]), st.sampled_from(["wide", "ties", "flat", "tiny"]))
+def test_float_robust_range_is_numpys_percentile_without_a_copy(dtype, seed, channels, kind):
+    # reference: numpy.percentile and ptp on the float64 copy (what prepare_image uses);
+    # values of both signs, many ties, one value, and values near zero (subnormals)
+    rng = np.random.default_rng(seed)
+    shape = (19, 13, channels)
+    arr = {"wide": lambda: rng.normal(0, 1e3, shape),
+           "ties": lambda: rng.integers(-3, 3, shape) * 0.5,
+           "flat": lambda: np.full(shape, -2.25),
+           "tiny": lambda: rng.normal(0, 1e-39, shape)}[kind]().astype(dtype)
+    lo, hi, contrast = large._robust_range(arr)
+    x = arr.astype(np.float64)
+    ref_lo, ref_hi = np.percentile(x, (0.5, 99.5))
+    if not ref_hi > ref_lo:
+        ref_lo, ref_hi = x.min(), x.max()
+    assert (lo, hi) == (pytest.approx(ref_lo, rel=1e-12, abs=1e-300),
+                        pytest.approx(ref_hi, rel=1e-12, abs=1e-300))
+    assert contrast == bool(np.ptp(x.reshape(-1, channels), axis=0).max() > 0)
 
 
 @settings(max_examples=20, deadline=None)
@@ -187,3 +211,32 @@ def test_overlays_of_large_images_come_from_a_reduced_copy(tmp_path):
     # the reduced overlay is close to the full one sampled at block centres
     sampled = full[::2, ::2].astype(int)
     assert np.median(np.abs(small.astype(int) - sampled)) <= 25
+
+
+def test_full_resolution_maps_are_compact_and_give_the_same_value():
+    # reference: mask_to_sides on int64 labels (the full path's type) gives the graph
+    # value the large path reports from its int32 labels; the full path keeps its types
+    from segcut.graph import cut_value
+    from segcut.image_graph import mask_to_sides
+
+    image, _ = _scene(9)
+    result = split(image, LARGE)
+    assert result.labels.dtype == np.int32 and result.confidence.dtype == np.float32
+    wide = replace(result.image_graph, labels=result.labels.astype(np.int64))
+    sides, _ = mask_to_sides(wide, result.mask)
+    assert cut_value(wide.graph, sides) == pytest.approx(result.value, rel=1e-12)
+    small = split(image[:100, :100], LARGE)
+    assert small.labels.dtype == np.int64 and small.confidence.dtype == np.float64
+
+
+def test_confidence_bytes_in_row_chunks_are_the_whole_array_formula():
+    # reference: round(255 x confidence) on the whole float64 array at once (the formula
+    # documented for confidence maps); 3000 x 700 spans three row chunks
+    from segcut.confidence import confidence_to_uint8
+
+    rng = np.random.default_rng(11)
+    values = rng.random((3000, 700))
+    values[0, :5] = [0.5 / 255, 1.5 / 255, -0.2, 1.3, 254.5 / 255]  # halves and outside [0, 1]
+    expected = np.rint(255.0 * np.clip(values, 0.0, 1.0)).astype(np.uint8)
+    assert confidence_to_uint8(values).tobytes() == expected.tobytes()
+    assert confidence_to_uint8(values.astype(np.float32)).dtype == np.uint8

@@ -7,7 +7,9 @@ A *run folder* holds everything one configuration produced::
       records.jsonl   one JSON object per input (the current result of each)
       summary.csv     one row per input, rewritten at the end of every run
       report.html     the page to look through the results (see :mod:`segcut.report`)
-      masks/<output>.png      0 background, 255 foreground (.tif for 3-D stacks)
+      masks/<output>.png      0 background, 255 foreground (.tif for 3-D stacks, and in
+                              tiles for images above max_graph_pixels; the record's
+                              and summary's ``mask`` name the file)
       overlays/<output>.png   the foreground shaded and outlined over the image, with a legend
 
 ``<output>`` is the input's path relative to the folder it was found in (or its file

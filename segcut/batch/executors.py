@@ -13,6 +13,7 @@ many inputs there are; each worker holds one image at a time. Every executor yie
 from __future__ import annotations
 
 import itertools
+import math
 import os
 import time
 import warnings
@@ -87,19 +88,38 @@ def _no_stage(name: str) -> None:
     pass
 
 
+def is_large_input(spatial_shape, config) -> bool:
+    """True for a 2-D image above ``config.max_graph_pixels`` (the large-image path): its
+    mask (and confidence map) is written as a TIFF in tiles, not as a PNG.
+
+    Examples
+    --------
+    >>> from segcut import SplitConfig
+    >>> is_large_input((1500, 1500), SplitConfig()), is_large_input((2000, 2000), SplitConfig())
+    (False, True)
+    """
+    limit = getattr(config, "max_graph_pixels", None)
+    return limit is not None and len(spatial_shape) == 2 \
+        and spatial_shape[0] * spatial_shape[1] > limit
+
+
 def process_task(task: Task, stage=_no_stage) -> dict:
     """Read, split and write one image; return its record. Never raises for bad input.
+
+    The mask goes to ``<task.mask>.png``, or ``.tif`` (zlib-compressed, in 256 x 256
+    tiles for a 2-D image above ``max_graph_pixels``, :func:`is_large_input`) for 3-D
+    stacks and large images; the record's ``mask`` names the file written. Overlays of
+    large images are drawn from a reduced copy (:func:`segcut.drawing.write_display_overlay`).
 
     ``stage`` (in-process runs only) is called with ``"reading"``, ``"splitting"``, then
     ``"splitting: <stage>"`` for each stage of :func:`segcut.split`
     (:data:`segcut.pipeline.STAGES`), and ``"writing"`` as the work moves on.
     """
-    from ..confidence import confidence_to_uint8
-    from ..drawing import write_overlay
-    from ..io import read_image, read_seeds, write_image, write_mask
+    from ..io import read_image, read_seeds
     from ..pipeline import split
 
     started = time.perf_counter()
+    io_seconds: dict = {}
     record = {"input": task.input, "status": "ok"}
     caught_messages: list[str] = []
     input_hash = task.input_hash
@@ -113,24 +133,19 @@ def process_task(task: Task, stage=_no_stage) -> dict:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             stage("reading")
+            t0 = time.perf_counter()
             image = read_image(task.path)
             seeds = None if task.seeds_path is None else read_seeds(task.seeds_path)
+            io_seconds["read"] = time.perf_counter() - t0
             stage("splitting")
             result = split(image.array, task.config, seeds=seeds,
                            channel_axis=image.channel_axis,
                            rng=image_seed(task.base_seed, input_hash),
                            progress=lambda name: stage(f"splitting: {name}"))
-            out = Path(task.out_dir)
-            suffix = ".tif" if image.is_stack else ".png"
-            mask_name = task.mask + suffix
             stage("writing")
-            write_mask(result.mask, out / mask_name)
-            write_overlay(image.array, result.mask, out / task.overlay,
-                          channel_axis=image.channel_axis)
-            confidence_name = None
-            if task.confidence is not None and result.confidence is not None:
-                confidence_name = task.confidence + suffix
-                write_image(confidence_to_uint8(result.confidence), out / confidence_name)
+            t0 = time.perf_counter()
+            mask_name, confidence_name = _write_outputs(task, image, result)
+            io_seconds["write"] = time.perf_counter() - t0
         caught_messages = [one_line(w.message) for w in caught]
         record.update(json_ready(result.to_record()))
         record["status"] = "ok"
@@ -166,9 +181,29 @@ def process_task(task: Task, stage=_no_stage) -> dict:
     record["versions"] = versions()
     stages = record.get("seconds")
     if isinstance(stages, dict):
-        record["stage_seconds"] = stages
+        record["stage_seconds"] = {**stages, **io_seconds}  # split's stages, reading, writing
     record["seconds"] = time.perf_counter() - started
     return record
+
+
+def _write_outputs(task: Task, image, result) -> tuple:
+    """Write the mask, the overlay and (when asked) the confidence map of one split;
+    return the names of the mask and the confidence map (None when not written)."""
+    from ..confidence import confidence_to_uint8
+    from ..drawing import write_display_overlay
+    from ..io import write_image, write_mask
+
+    out = Path(task.out_dir)
+    large = is_large_input(image.spatial_shape, task.config)
+    suffix = ".tif" if image.is_stack or large else ".png"
+    mask_name = task.mask + suffix
+    write_mask(result.mask, out / mask_name, tiled=large)
+    write_display_overlay(image, result.mask, out / task.overlay)
+    confidence_name = None
+    if task.confidence is not None and result.confidence is not None:
+        confidence_name = task.confidence + suffix
+        write_image(confidence_to_uint8(result.confidence), out / confidence_name, tiled=large)
+    return mask_name, confidence_name
 
 
 def failed_record(task: Task, error: str) -> dict:
@@ -286,7 +321,22 @@ def _stop_pool(pool) -> None:
         process.join(timeout=5)
 
 
-def _local_cluster(n_workers: int):
+#: The Dask worker resource a task asks for: its estimated peak bytes
+#: (:func:`segcut.batch.memory.estimate_peak_bytes`). Local clusters declare it (the
+#: memory budget shared by the workers); workers of a cluster started elsewhere declare
+#: it with ``dask worker ... --resources segcut_memory=<bytes>``.
+MEMORY_RESOURCE = "segcut_memory"
+
+
+def task_peak_bytes(task: Task) -> int:
+    """Estimated peak bytes of splitting ``task``'s image (0 when its header is unreadable)."""
+    from .memory import estimate_peak_bytes, image_pixels
+
+    shape = image_pixels(task.path)
+    return estimate_peak_bytes(shape, task.config) if shape else 0
+
+
+def _local_cluster(n_workers: int, worker_bytes: float | None = None):
     """A local Dask cluster of ``n_workers`` single-threaded worker processes, set up for
     short runs: workers started through a fork server, as the process pool's are (closing
     such a cluster took 0.05-0.07 s against 1.3-1.8 s for spawned workers, 2 workers on
@@ -305,17 +355,48 @@ def _local_cluster(n_workers: int):
     if "forkserver" in multiprocessing.get_all_start_methods():
         settings["distributed.worker.multiprocessing-method"] = "forkserver"
     with dask.config.set(settings):
+        extra = {} if worker_bytes is None or not math.isfinite(worker_bytes) \
+            else {"resources": {MEMORY_RESOURCE: float(worker_bytes)}}
         return LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
-                            dashboard_address=None, silence_logs=50)
+                            dashboard_address=None, silence_logs=50, **extra)
+
+
+def _cluster_memory(client, budget_bytes):
+    """``(budget, capacity)`` of a Dask run: the bytes the images in flight may use
+    together (``budget_bytes``, else :data:`~segcut.batch.memory.BUDGET_FRACTION` of the
+    workers' memory limits summed; None: no limit), and the largest
+    :data:`MEMORY_RESOURCE` one worker declares (None when some worker declares none)."""
+    from .memory import BUDGET_FRACTION
+
+    workers = list(client.scheduler_info().get("workers", {}).values())
+    declared = [(w.get("resources") or {}).get(MEMORY_RESOURCE) for w in workers]
+    capacity = max(declared) if workers and all(declared) else None
+    if budget_bytes is None:
+        limits = [w.get("memory_limit") or 0 for w in workers]
+        budget_bytes = BUDGET_FRACTION * sum(limits) if limits and all(limits) else None
+    if budget_bytes is not None and not math.isfinite(budget_bytes):
+        budget_bytes = None
+    return budget_bytes, capacity
 
 
 def run_dask(tasks: Iterator[Task], *, scheduler: str | None, dask_local: int | None,
-              config) -> Iterator[tuple[Task, dict]]:
+             config, memory_budget: float | None = None) -> Iterator[tuple[Task, dict]]:
+    """Run the tasks on a Dask cluster (local or at ``scheduler``), memory-aware.
+
+    Each task's estimated peak (:func:`task_peak_bytes`) is held against the memory of
+    the cluster: tasks are handed out while the estimates of those in flight fit in
+    ``memory_budget`` bytes (default: :data:`~segcut.batch.memory.BUDGET_FRACTION` of
+    the workers' memory limits; ``inf``: no limit), always at least one; and when every
+    worker declares the resource :data:`MEMORY_RESOURCE`, each task asks for its
+    estimate of it (at most what the largest worker has), so a worker running several
+    tasks at once never takes more than it declared.
+    """
     from distributed import Client, as_completed
 
     cluster = None
     if dask_local:
-        cluster = _local_cluster(dask_local)
+        share = None if memory_budget is None else memory_budget / dask_local
+        cluster = _local_cluster(dask_local, share)
         client = Client(cluster)
     else:
         try:
@@ -326,27 +407,37 @@ def run_dask(tasks: Iterator[Task], *, scheduler: str | None, dask_local: int | 
     try:
         client.run(_warm_up, config)
         n_workers = max(1, len(client.scheduler_info().get("workers", {})))
+        budget, capacity = _cluster_memory(client, memory_budget)
         window = 2 * n_workers
-        in_flight: dict = {}
+        in_flight: dict = {}  # key -> (task, its estimated peak)
         counter = itertools.count()
         queue = as_completed()
         exhausted = False
+        held: list = []  # the next task, waiting for memory
 
         def submit_more():
             nonlocal exhausted
-            while not exhausted and len(in_flight) < window:
-                task = next(tasks, None)
+            while len(in_flight) < window and (held or not exhausted):
+                task, peak = held.pop() if held else (next(tasks, None), 0)
                 if task is None:
                     exhausted = True
                     return
+                peak = peak or task_peak_bytes(task)
+                used = sum(p for _, p in in_flight.values())
+                if in_flight and budget is not None and used + peak > budget:
+                    held.append((task, peak))
+                    return
+                extra = {} if capacity is None else \
+                    {"resources": {MEMORY_RESOURCE: float(min(max(peak, 1), capacity))}}
                 future = client.submit(process_task, task, pure=False,
-                                       key=f"segcut-image-{next(counter)}-{time.time_ns()}")
-                in_flight[future.key] = task
+                                       key=f"segcut-image-{next(counter)}-{time.time_ns()}",
+                                       **extra)
+                in_flight[future.key] = (task, peak)
                 queue.add(future)
 
         submit_more()
         for future in queue:
-            task = in_flight.pop(future.key)
+            task, _ = in_flight.pop(future.key)
             try:
                 record = future.result()
             except Exception as exc:  # noqa: BLE001 - a lost worker, not a bad image

@@ -97,13 +97,18 @@ def _matches(relative: str, patterns: Sequence[str]) -> bool:
 
 
 def _walk(given: str, ignored: set) -> list:
-    """``(relative name, path)`` of every visible file under a folder, sorted."""
+    """``(relative name, path)`` of every visible file under a folder, and of every Zarr
+    store (a folder read as one image, not searched), sorted."""
+    from ..io_zarr import is_zarr_store
+
     found = []
     for folder, dirs, files in os.walk(given):
         dirs[:] = sorted(d for d in dirs if not d.startswith(".")
                          and os.path.realpath(os.path.join(folder, d)) not in ignored)
         rel_folder = os.path.relpath(folder, given)
-        for name in files:
+        stores = [d for d in dirs if is_zarr_store(os.path.join(folder, d))]
+        dirs[:] = [d for d in dirs if d not in stores]
+        for name in stores + files:
             if name.startswith("."):
                 continue
             rel = name if rel_folder == "." else os.path.join(rel_folder, name)
@@ -196,6 +201,8 @@ def find_inputs(paths: Iterable, *, include: Sequence[str] = (), exclude: Sequen
     >>> [reason for _, reason in listing.skipped]
     ['not a known image type (.txt)']
     """
+    from ..io_zarr import is_zarr_store
+
     suffixes = _image_suffixes()
     ignored = {os.path.realpath(p) for p in ignore}
     found: list = []  # (given index, label, relative name, path)
@@ -204,7 +211,10 @@ def find_inputs(paths: Iterable, *, include: Sequence[str] = (), exclude: Sequen
     seen_files: dict = {}
     for index, given in enumerate(paths):
         given = os.fspath(given)
-        if os.path.isdir(given):
+        if is_zarr_store(given):  # a Zarr store given directly: one image
+            entries, label = [(os.path.basename(os.path.normpath(given)), given)], \
+                _label(given, False)
+        elif os.path.isdir(given):
             entries, label = _walk(given, ignored), _label(given, True)
         elif os.path.isfile(given):
             entries, label = [(os.path.basename(given), given)], _label(given, False)
@@ -217,7 +227,7 @@ def find_inputs(paths: Iterable, *, include: Sequence[str] = (), exclude: Sequen
             if (include and not _matches(rel, include)) or (exclude and _matches(rel, exclude)):
                 continue
             suffix = os.path.splitext(path)[1].lower()
-            if suffix not in suffixes:
+            if suffix not in suffixes and not is_zarr_store(path):
                 skipped.append((path, f"not a known image type ({suffix or 'no suffix'})"))
                 continue
             real = os.path.realpath(path)
@@ -240,6 +250,9 @@ def find_inputs(paths: Iterable, *, include: Sequence[str] = (), exclude: Sequen
 def hash_file(path) -> str:
     """SHA-256 of a file's bytes, read in 1 MiB pieces, as ``"sha256:<hex>"``.
 
+    A folder (a Zarr store) is hashed as the sequence of its files in sorted order of
+    their relative paths, each as its path, its length and its bytes.
+
     Examples
     --------
     >>> import tempfile, pathlib
@@ -250,10 +263,30 @@ def hash_file(path) -> str:
     'sha256:ba7816bf8f01cfea'
     """
     digest = hashlib.sha256()
+    if os.path.isdir(path):
+        for rel, full in _walk_all(path):
+            digest.update(f"{rel}\0{os.path.getsize(full)}\0".encode())
+            _hash_into(digest, full)
+    else:
+        _hash_into(digest, path)
+    return "sha256:" + digest.hexdigest()
+
+
+def _hash_into(digest, path) -> None:
     with open(path, "rb") as fh:
         while chunk := fh.read(_HASH_CHUNK):
             digest.update(chunk)
-    return "sha256:" + digest.hexdigest()
+
+
+def _walk_all(folder) -> list:
+    """``(relative path with / separators, path)`` of every file under ``folder``, sorted."""
+    found = []
+    for here, dirs, files in os.walk(folder):
+        dirs.sort()
+        for name in files:
+            full = os.path.join(here, name)
+            found.append((os.path.relpath(full, folder).replace(os.sep, "/"), full))
+    return sorted(found)
 
 
 def image_seed(seed: int, input_hash: str) -> int:

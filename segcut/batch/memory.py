@@ -8,15 +8,27 @@ RGB image, 2 cores):
 ``peak = BASE_BYTES + max(GRAPH_BYTES_PER_PIXEL * graph_pixels, FULL_BYTES_PER_PIXEL *
 pixels)`` on the large-image path of :mod:`segcut.large`, where ``graph_pixels`` are the
 pixels of the reduced copy the superpixel graph is built on (the graph stages peak
-first; the full-resolution labels, confidence, mask and tiles later). Measured peaks
-(GiB, fresh process, the benchmark's own uint8 image included) and the estimate:
-512x512 0.26 (0.30); 1 Mpixel full path 0.46 (0.45), 4 Mpixel full path 1.03 (1.03);
-large path 4 Mpixel 0.37 (0.45), 16 Mpixel 0.59 (0.60), 36 Mpixel 1.02 (1.02),
-100 Mpixel 2.32 (2.39). ``tests/test_batch_memory.py`` checks the estimate against a measured peak.
+first; the full-resolution labels (int32), confidence (float32), mask and tiles later).
+Measured peaks (GiB, fresh process, the benchmark's own uint8 image included) and the
+estimate: 512x512 0.26 (0.30); 1 Mpixel full path 0.46 (0.45), 4 Mpixel full path 1.03
+(1.03); large path, ``split`` of an array, 4 Mpixel 0.37 (0.45), 16 Mpixel 0.50 (0.60),
+36 Mpixel 0.75 (0.97), 100 Mpixel 1.58 (2.25). A worker does more than ``split``: it
+reads the file (large TIFF and Zarr through a mapping whose pages count) and writes
+the mask and overlay while the result is held, so the large-path term is fitted to
+``segcut split FILE --jobs 1`` of tiled TIFF and Zarr files: 36 Mpixel 0.95-0.97
+(0.97), 100 Mpixel 2.24 (2.25). Between 2 and 10 Mpixel it estimates low (measured:
+``split`` of a 1.96 Mpixel array reduced by 3, 0.37 (0.30); a worker's task on a mapped
+5.8 Mpixel TIFF reduced by 4, 0.48 (0.37), 9 Mpixel reduced by 5, 0.55 (0.43)): fixed
+costs (overlay drawing, tiles) not in the two terms; :data:`BUDGET_FRACTION` leaves
+that much room. ``tests/test_batch_memory.py`` checks the estimate against a measured peak.
 
-:func:`memory_workers` caps the number of worker processes of a batch at what the
-memory budget (by default :data:`BUDGET_FRACTION` of the memory available when the run
-starts) holds for the largest image of the run.
+:func:`memory_workers` caps the number of worker processes of a batch (the process
+pool's ``jobs``, a local Dask cluster's workers) at what the memory budget (by default
+:data:`BUDGET_FRACTION` of the memory available when the run starts) holds for the
+largest image of the run. Dask runs also hold each image's estimate against the budget
+while it is in flight (:func:`segcut.batch.executors.run_dask`). Images read through a
+file mapping (large TIFF and Zarr, :mod:`segcut.io`) count their mapped pixels in the
+resident memory measured here as well.
 """
 
 from __future__ import annotations
@@ -33,7 +45,7 @@ BASE_BYTES = int(0.25 * GIB)
 #: Bytes per pixel of the image the superpixel graph is built on.
 GRAPH_BYTES_PER_PIXEL = 210
 #: Bytes per full-resolution pixel on the large-image path.
-FULL_BYTES_PER_PIXEL = 23
+FULL_BYTES_PER_PIXEL = 21.5
 #: Share of the available memory a batch plans to use by default.
 BUDGET_FRACTION = 0.8
 
@@ -54,7 +66,7 @@ def estimate_peak_bytes(shape, config=None) -> int:
     >>> round(estimate_peak_bytes((512, 512)) / GIB, 2)
     0.3
     >>> round(estimate_peak_bytes((6000, 6000)) / GIB, 2)
-    1.02
+    0.97
     >>> round(estimate_peak_bytes((6000, 6000), SplitConfig(max_graph_pixels=None)) / GIB, 2)
     7.29
     """
@@ -116,6 +128,10 @@ def memory_workers(jobs: int, peak_bytes: int, budget_bytes: float | None) -> in
 def image_pixels(path) -> tuple | None:
     """The spatial shape of the image at ``path`` from its header (no decoding); None
     when it cannot be read that way."""
+    from ..io_zarr import is_zarr_store, zarr_spatial_shape
+
+    if is_zarr_store(path):
+        return zarr_spatial_shape(path)
     try:
         import tifffile
 

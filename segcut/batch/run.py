@@ -394,27 +394,38 @@ def _interrupts_held():
         raise KeyboardInterrupt
 
 
+def _budget_bytes(memory_budget):
+    """The memory budget in bytes: ``memory_budget`` GiB, else
+    :data:`~segcut.batch.memory.BUDGET_FRACTION` of the available memory (None: unknown)."""
+    from .memory import BUDGET_FRACTION, GIB, available_memory
+
+    if memory_budget is None:
+        available = available_memory()
+        return None if available is None else BUDGET_FRACTION * available
+    return float(memory_budget) * GIB
+
+
 def _memory_jobs(jobs, todo, config, memory_budget):
     """``jobs`` capped by the memory budget and the largest image's estimated peak."""
-    from .memory import GIB, available_memory, estimate_peak_bytes, image_pixels, \
-        memory_workers, BUDGET_FRACTION
+    from .memory import estimate_peak_bytes, image_pixels, memory_workers
 
     if jobs <= 1 or len(todo) <= 1:
         return jobs
-    if memory_budget is None:
-        available = available_memory()
-        budget = None if available is None else BUDGET_FRACTION * available
-    else:
-        budget = float(memory_budget) * GIB
+    budget = _budget_bytes(memory_budget)
     shapes = [image_pixels(entry[0].path) for entry in todo]
     peak = max(estimate_peak_bytes(shape, config) for shape in shapes if shape) \
         if any(shapes) else 0
     return memory_workers(jobs, peak, budget)
 
 
-def _executor(tasks, *, jobs, n_todo, scheduler, dask_local, config, stage):
+def _executor(tasks, *, jobs, n_todo, scheduler, dask_local, config, stage, memory_budget):
     if scheduler is not None or dask_local is not None:
-        return run_dask(tasks, scheduler=scheduler, dask_local=dask_local, config=config)
+        # a local cluster shares this machine's budget; a remote one is measured by the
+        # workers' own memory limits unless a budget was given
+        budget = None if scheduler is not None and memory_budget is None \
+            else _budget_bytes(memory_budget)
+        return run_dask(tasks, scheduler=scheduler, dask_local=dask_local, config=config,
+                        memory_budget=budget)
     if jobs == 1 or n_todo <= 1:
         return run_serial(tasks, stage)
     return run_pool(tasks, jobs=min(jobs, n_todo), config=config)
@@ -480,7 +491,11 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
     memory_budget : float, optional
         GiB the worker processes may use together; by default
         :data:`~segcut.batch.memory.BUDGET_FRACTION` of the memory available at the
-        start; ``float("inf")`` never limits ``jobs``. Not applied to Dask runs.
+        start; ``float("inf")`` never limits anything. It caps ``jobs`` and the workers
+        of ``dask_local`` (as many as hold the largest image's estimated peak), and on
+        Dask the images in flight (their estimates summed must fit; for ``scheduler``
+        the default is the workers' own memory limits) and each task's
+        ``segcut_memory`` resource (:func:`segcut.batch.executors.run_dask`).
 
     Returns
     -------
@@ -523,6 +538,8 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
                           confidence_maps)
     if scheduler is None and dask_local is None:
         jobs = _memory_jobs(jobs, todo, config, memory_budget)
+    elif dask_local is not None:
+        dask_local = _memory_jobs(int(dask_local), todo, config, memory_budget)
     workers = dask_local or (1 if scheduler is None and jobs == 1 else jobs)
     tally = _Tally(len(listing.items) + len(listing.missing), resumed, workers, progress)
     for missing in listing.missing:
@@ -543,7 +560,8 @@ def run_batch(paths: Iterable, out_dir, config, *, include: Sequence[str] = (),
 
     tally.report(None)
     results = _executor(tasks(), jobs=jobs, n_todo=len(todo), scheduler=scheduler,
-                        dask_local=dask_local, config=config, stage=tally.stage)
+                        dask_local=dask_local, config=config, stage=tally.stage,
+                        memory_budget=memory_budget)
     interrupted = False
     try:
         for task, record in results:

@@ -12,9 +12,18 @@ ratio of a size is its seconds over that.
 The second table compares the full-resolution path (``max_graph_pixels=None``)
 with the large-image path on images that fit both ways.
 
+The third table goes through files, as the command line does: the scene is written
+once as a tiled, zlib-compressed BigTIFF (512 x 512 tiles) and once as a Zarr array
+(1024 x 1024 x 3 chunks, zarr's default compressor), and a fresh process warms up,
+then runs ``segcut split FILE -o OUT --jobs 1`` in process (hash, read through the
+file mapping, split, tiled TIFF mask, reduced overlay, records and report); its
+seconds and peak resident memory (``ru_maxrss``, the mapped pixels included) are
+printed with the IoU of the mask file it wrote.
+
 Usage::
 
     python tests/benchmarks/bench_large.py [--sizes 1 4 16 36 100] [--compare 1 4]
+                                           [--files 36 100]
 """
 
 from __future__ import annotations
@@ -22,9 +31,11 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import resource
 import subprocess
 import sys
+import tempfile
 import time
 
 import numpy as np
@@ -89,6 +100,51 @@ def run_one(side, max_graph_pixels):
                       "mask": mask.tobytes().hex() if side <= 2048 else None}))
 
 
+def write_files(side, folder):
+    """The scene as a tiled BigTIFF and as a Zarr array in ``folder``; their paths."""
+    import tifffile
+    import zarr
+
+    image = make_scene(side)
+    tiff = os.path.join(folder, f"scene_{side}.tif")
+    tifffile.imwrite(tiff, image, photometric="rgb", tile=(512, 512), compression="zlib",
+                     compressionargs={"level": 1}, bigtiff=True)
+    store = os.path.join(folder, f"scene_{side}.zarr")
+    array = zarr.open_array(store, mode="w", shape=image.shape, chunks=(1024, 1024, 3),
+                            dtype="u1")
+    step = 4096
+    for r0 in range(0, side, step):
+        array[r0:r0 + step] = image[r0:r0 + step]
+    return tiff, store
+
+
+def run_file(path, out):
+    """In this process: warm up, then ``segcut split path -o out --jobs 1``; one JSON line."""
+    import tifffile
+
+    from segcut import SplitConfig, split
+    from segcut.batch import load_records
+    from segcut_cli.main import main as cli
+
+    split(make_scene(64), SplitConfig())
+    t0 = time.perf_counter()
+    code = cli(["split", path, "-o", out, "--jobs", "1", "--quiet"])
+    seconds = time.perf_counter() - t0
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    record = next(iter(load_records(out).values()))
+    mask = tifffile.imread(os.path.join(out, record["mask"])) > 0
+    print(json.dumps({"code": code, "seconds": seconds, "peak_gib": peak / GIB,
+                      "iou": iou_with_truth(mask), "mask": record["mask"],
+                      "stages": record.get("stage_seconds", {})}))
+
+
+def measure_file(path, out):
+    """Run :func:`run_file` in a fresh subprocess; its JSON record."""
+    result = subprocess.run([sys.executable, __file__, "--file", path, out],
+                            capture_output=True, text=True, check=True)
+    return json.loads(result.stdout.strip().splitlines()[-1])
+
+
 def measure(side, max_graph_pixels):
     """Run :func:`run_one` in a fresh subprocess; its JSON record."""
     limit = "None" if max_graph_pixels is None else str(int(max_graph_pixels))
@@ -109,12 +165,17 @@ def side_of(mpix):
 
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--sizes", type=float, nargs="+", default=[1, 4, 16, 36, 100])
+    parser.add_argument("--sizes", type=float, nargs="*", default=[1, 4, 16, 36, 100])
     parser.add_argument("--compare", type=float, nargs="*", default=[1, 4])
+    parser.add_argument("--files", type=float, nargs="*", default=[36, 100])
     parser.add_argument("--one", nargs=2, help=argparse.SUPPRESS)
+    parser.add_argument("--file", nargs=2, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.one:
         run_one(int(args.one[0]), None if args.one[1] == "None" else int(args.one[1]))
+        return
+    if args.file:
+        run_file(*args.file)
         return
     base = measure(512, None)
     print(f"512x512: {base['seconds']:.2f} s, peak {base['peak_gib']:.2f} GiB, "
@@ -145,6 +206,26 @@ def main():
               f"{full['iou'] - reduced['iou']:>7.4f} {agree:>10.4f} {full['seconds']:>7.1f} "
               f"{reduced['seconds']:>8.1f} {full['peak_gib']:>9.2f} {reduced['peak_gib']:>10.2f}",
               flush=True)
+    print_files(args.files, base)
+
+
+def print_files(sizes, base):
+    """The third table: ``segcut split`` of a TIFF and a Zarr file of each size."""
+    if not sizes:
+        return
+    print("\nthrough files: segcut split FILE -o OUT --jobs 1 (read, split, write), fresh process")
+    print(f"{'Mpixel':>7} {'input':>6} {'seconds':>8} {'x 512²':>7} {'peak GiB':>9} {'IoU':>6} "
+          f"{'read s':>7} {'write s':>8} {'mask':>18}")
+    for mpix in sizes:
+        side = side_of(mpix)
+        with tempfile.TemporaryDirectory(prefix="bench-large-") as folder:
+            for kind, path in zip(("tiff", "zarr"), write_files(side, folder)):
+                r = measure_file(path, os.path.join(folder, f"out_{kind}"))
+                stages = r["stages"]
+                print(f"{mpix:>7g} {kind:>6} {r['seconds']:>8.1f} "
+                      f"{r['seconds'] / base['seconds']:>7.1f} {r['peak_gib']:>9.2f} "
+                      f"{r['iou']:>6.3f} {stages.get('read', float('nan')):>7.1f} "
+                      f"{stages.get('write', float('nan')):>8.1f} {r['mask']:>18}", flush=True)
 
 
 if __name__ == "__main__":
