@@ -393,7 +393,7 @@ def split_large(image, config, *, seeds=None, channel_axis=-1, generator=None, s
     if config.box is not None:
         config = config.replace(box=_canonical_box(config.box, spatial, transform))
     seeds = None if seeds is None else apply_transform(seeds, transform)
-    reduced = _ReducedSplit.solve(view, config, seeds, lo, hi, generator, seconds)
+    reduced = _ReducedSplit.solve(view, config, seeds, lo, hi, generator, seconds, transform)
     t0 = time.perf_counter()
     mask, refine_record, changed = _refine_tiles(view, reduced, config, seeds, lo, hi)
     mask = np.ascontiguousarray(apply_transform(mask, transform, inverse=True))
@@ -410,7 +410,7 @@ class _ReducedSplit:
         self.value_before, self.bound = value, bound
 
     @classmethod
-    def solve(cls, view, config, seeds, lo, hi, generator, seconds):
+    def solve(cls, view, config, seeds, lo, hi, generator, seconds, transform="identity"):
         from .appearance import border_rule
         from .image_graph import frame_pixels
         from .pipeline import _Prepared, _graph_stages, _solve
@@ -423,7 +423,7 @@ class _ReducedSplit:
             box=_reduce_box(config.box, f))
         small_seeds = None if seeds is None else _reduce_seeds(seeds, f)
         prepared = _Prepared(values, image_features(values), small_seeds, small_config,
-                             "identity", values.shape[:2], [])
+                             "identity", values.shape[:2], [], prior_transform=transform)
         seconds["reduce"] = time.perf_counter() - t0
         ig, regions = _graph_stages(prepared, seconds, generator)
         t0 = time.perf_counter()

@@ -229,6 +229,9 @@ class _Prepared:
     transform: str
     caller_spatial: tuple
     warnings: list
+    #: The transform named priors are moved by (default ``transform``; the large-image
+    #: path hands in a reduced copy already in its canonical orientation).
+    prior_transform: str | None = None
 
 
 def _prepare_stage(image, config, seeds, channel_axis, seconds):
@@ -323,10 +326,10 @@ def _box_seeds(seeds, spatial, box):
     return out
 
 
-def _prior_stage(labels, regions, config, seeds, warnings):
+def _prior_stage(labels, regions, config, seeds, warnings, transform="identity"):
     n = regions.n_regions
     spatial = labels.shape
-    pmap, inside = prior_map(spatial, config)
+    pmap, inside = prior_map(spatial, config, transform)
     flat_labels = labels.ravel()
     evidence = np.zeros(n)
     fg_w = bg_w = None
@@ -417,7 +420,8 @@ def _graph_stages(prepared, seconds, rng, progress=None):
     labels, regions, adjacency = _region_stage(prepared.features, config, seconds)
     t0 = time.perf_counter()
     rows, cols, pair_w, threshold = _pair_stage(regions, adjacency, config)
-    priors = _prior_stage(labels, regions, config, prepared.seeds, warnings)
+    priors = _prior_stage(labels, regions, config, prepared.seeds, warnings,
+                          prepared.prior_transform or prepared.transform)
     informed = priors.fg_w is not None
     problem = ModelProblem(
         n_regions=regions.n_regions, merged=priors.merged, rows=rows, cols=cols,
@@ -652,11 +656,12 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
     those of the (M, N) plane) the one with the smallest key (spatial shape, then
     exact sums of the values over a 9 x 9 grid of mirror-symmetric blocks, then
     the values pixel by pixel), see :func:`canonical_transform`. Seeds and the
-    ``box`` (given in the caller's frame) are moved along; the border and center
-    priors are laid out in the canonical frame. The labels and mask are moved back,
+    ``box`` (given in the caller's frame) are moved along, and so are the maps of named
+    priors (laid out over the caller's image). The labels and mask are moved back,
     and the transform is recorded as ``canonical_transform``. Hence for every flip
     or quarter turn ``T``, ``split(T(image)).mask == T(split(image).mask)`` bit for
-    bit, with the same value and upper bound (same graph, same vertex order).
+    bit, with the same value and upper bound (same graph, same vertex order), for
+    priors that are themselves symmetric under ``T`` (the border and center priors).
     Exception: an image that equals one of its own flips or turns ``S`` (exact
     symmetry) has several equally canonical views; they are the same array, so the
     graph, value and bound are still the same, but the mask may come back as

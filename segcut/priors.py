@@ -22,6 +22,7 @@ from typing import Callable
 import numpy as np
 
 from ._plugins import check_new_name, first_doc_line, load_plugins
+from .orientation import apply_transform
 
 __all__ = [
     "ENTRY_POINT_GROUP",
@@ -149,8 +150,21 @@ def box_map(spatial_shape, box) -> np.ndarray:
     return out
 
 
-def prior_map(spatial_shape, config) -> tuple[np.ndarray | None, np.ndarray | None]:
+def prior_map(spatial_shape, config, transform: str = "identity") \
+        -> tuple[np.ndarray | None, np.ndarray | None]:
     """Combined pixel prior of ``config.prior`` and ``config.box``.
+
+    Parameters
+    ----------
+    spatial_shape : tuple of int
+        Spatial shape of the image being split (in its processing orientation).
+    config : SplitConfig
+        ``config.box`` is in that same orientation.
+    transform : str
+        The canonical transform that took the caller's image to ``spatial_shape``
+        (:mod:`segcut.orientation`): each named prior is laid out over the caller's
+        image, as its author sees it, and moved by the transform, so a prior that is
+        not symmetric under flips and turns lands where it was meant.
 
     Returns
     -------
@@ -161,7 +175,11 @@ def prior_map(spatial_shape, config) -> tuple[np.ndarray | None, np.ndarray | No
         The box interior (used as the first foreground sample of the colour
         models), None without a box.
     """
-    maps = [get_prior(name).pixel_map(tuple(spatial_shape), config) for name in config.prior]
+    caller_shape = apply_transform(np.empty(tuple(spatial_shape), dtype=np.int8), transform,
+                                   inverse=True).shape
+    maps = [np.ascontiguousarray(apply_transform(
+        np.asarray(get_prior(name).pixel_map(tuple(caller_shape), config), dtype=np.float64),
+        transform)) for name in config.prior]
     inside = None
     if config.box is not None:
         bm = box_map(spatial_shape, config.box)

@@ -211,7 +211,6 @@ def test_prior_affinity_and_method_of_a_separate_package_go_through_split(tmp_pa
     calls = [json.loads(line) for line in marker.read_text().splitlines()]
     assert calls and all(call["pairs"] > 0 for call in calls)
     # the prior decided the split: the middle band is foreground, the sides background
-    # (a prior symmetric under flips: priors are laid out in the canonical orientation)
     mask = read_mask(tmp_path / "out" / "masks" / "noise.png")
     assert mask[:, 18:30].mean() > 0.9 and mask[:, :12].mean() < 0.1
     assert mask[:, 36:].mean() < 0.1

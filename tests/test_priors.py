@@ -83,3 +83,39 @@ def test_conflicting_seeds_in_one_region_are_reported_with_the_pixels_overruled(
     assert kinds.tolist() == [1, -1, 0]
     assert len(warnings) == 1
     assert "2 superpixel(s) hold both" in warnings[0] and "overruling 2 seed pixel(s)" in warnings[0]
+
+
+@pytest.mark.parametrize("max_graph_pixels", [None, 4000])
+def test_a_prior_that_is_not_symmetric_lands_where_its_author_put_it(max_graph_pixels):
+    """A prior saying "left third background, right third foreground" on a noise image:
+    whatever the processing orientation the image gets (canonical transform), the
+    mask follows the prior in the caller's frame, in every flip and turn of the image;
+    also on the large-image path (a reduced copy, forced by a small max_graph_pixels)."""
+    from segcut import SplitConfig, split
+    from segcut import priors as priors_module
+
+    def left_right(shape, config):
+        out = np.zeros(shape)
+        cols = shape[-1]
+        out[..., : cols // 3] = -1.0
+        out[..., cols - cols // 3:] = 1.0
+        return out
+
+    rng = np.random.default_rng(5)
+    noise = rng.random((60, 72))
+    transforms = set()
+    extra = {} if max_graph_pixels is None else {"max_graph_pixels": max_graph_pixels}
+    priors_module.register_prior("left_right", left_right)
+    try:
+        for image in (noise, noise[:, ::-1], noise[::-1], noise.T, np.rot90(noise)):
+            result = split(np.ascontiguousarray(image),
+                           SplitConfig(prior=("left_right",), prior_strength=4.0, **extra), rng=0)
+            if max_graph_pixels is not None:
+                assert "reduction_factor" in result.graphs[0]
+            transforms.add(result.canonical_transform)
+            cols = image.shape[1]
+            assert result.mask[:, : cols // 3].mean() < 0.1, result.canonical_transform
+            assert result.mask[:, cols - cols // 3:].mean() > 0.9, result.canonical_transform
+    finally:
+        priors_module._PRIORS.pop("left_right", None)
+    assert len(transforms) > 1  # the check ran through orientations other than identity
