@@ -31,13 +31,16 @@ from typing import Sequence
 
 __all__ = ["FLAG_MEANINGS", "FLAG_RULES", "flag_row", "histogram_svg", "render_report"]
 
-#: Default thresholds of :func:`flag_row`.
+#: Default thresholds of :func:`flag_row`. ``max_disagreement``: on the dev sets (no
+#: prior, one run) the images above 0.5 scored mean IoU 0.674 (16 of 100 microscopy
+#: images) and 0.563 (22 of 60 photographs) against 0.789 and 0.712 for the rest; at
+#: 0.3 the flag also fell on images that came out well (flagged 0.686 and 0.595).
 FLAG_RULES = {
     "min_foreground": 0.02,
     "max_foreground": 0.90,
     "max_gap": 0.05,
     "max_frame": 0.5,
-    "max_disagreement": 0.3,
+    "max_disagreement": 0.5,
     "max_refine_change": 0.05,
     "max_uncertain": 0.2,
 }
@@ -115,7 +118,7 @@ def flag_row(row: dict, *, min_foreground: float = FLAG_RULES["min_foreground"],
     >>> flag_row({"status": "ok", "foreground_fraction": 0.01, "gap": 0.08, "warnings": []})
     ['tiny foreground', 'large gap']
     >>> flag_row({"status": "ok", "foreground_fraction": 0.6, "gap": 0.0, "warnings": [],
-    ...           "frame_fraction": 0.8, "hypothesis_disagreement": 0.45})
+    ...           "frame_fraction": 0.8, "hypothesis_disagreement": 0.55})
     ['hugs the frame', 'hypotheses disagree']
     >>> flag_row({"status": "failed", "error": "x.png: empty file"})
     ['failed']

@@ -96,12 +96,12 @@ def test_empty_run_gives_a_valid_page():
 def test_flags_from_the_signals_a_run_records():
     assert flag_row(_row("a", frame_fraction=0.8)) == ["hugs the frame"]
     assert flag_row(_row("a", frame_fraction=0.4)) == []
-    assert flag_row(_row("a", hypothesis_disagreement=0.45)) == ["hypotheses disagree"]
+    assert flag_row(_row("a", hypothesis_disagreement=0.55)) == ["hypotheses disagree"]
     assert flag_row(_row("a", refine_changed_fraction=0.2)) == ["refinement changed much"]
     assert flag_row(_row("a", uncertain_fraction=0.5)) == ["uncertain"]
     # records written before these signals existed raise no flag
     assert flag_row(_row("a", frame_fraction=None, hypothesis_disagreement=None)) == []
-    assert flag_row(_row("a", hypothesis_disagreement=0.45), max_disagreement=0.5) == []
+    assert flag_row(_row("a", hypothesis_disagreement=0.55), max_disagreement=0.6) == []
     for rule in FLAG_RULES:  # every threshold is a keyword of flag_row
         flag_row(_row("a"), **{rule: FLAG_RULES[rule]})
 
@@ -109,7 +109,7 @@ def test_flags_from_the_signals_a_run_records():
 def test_page_states_the_configuration_explains_flags_and_shows_recorded_signals():
     from segcut.report import FLAG_MEANINGS
 
-    rows = [_row("a.png", hypothesis="central_box", hypothesis_disagreement=0.45,
+    rows = [_row("a.png", hypothesis="central_box", hypothesis_disagreement=0.55,
                  frame_fraction=0.1, thumbnail=_png(300, 200), overlay="overlays/a.png")]
     page = render_report(rows, settings={"prior": "border, center", "box": "none",
                                          "method": "auto"}, config_link="run.toml")
