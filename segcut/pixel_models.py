@@ -69,10 +69,12 @@ class TwoGaussianFit:
     foreground_weight: float
 
 
-def _log_densities(x, weights, means, variance):
-    """(n, 2) log of weight x Gaussian density with one shared diagonal variance."""
-    norm = np.log(weights) - 0.5 * np.log(2.0 * np.pi * variance).sum()
-    return norm[None, :] - 0.5 * (((x[:, None, :] - means[None]) ** 2) / variance).sum(axis=2)
+def _linear_ratio(weights, means, variance):
+    """(a, b) with log(w0 N(x; m0, V) / (w1 N(x; m1, V))) = x @ a + b (shared diagonal V)."""
+    a = (means[0] - means[1]) / variance
+    b = float(np.log(weights[0] / weights[1])
+              - 0.5 * ((means[0] ** 2 - means[1] ** 2) / variance).sum())
+    return a, b
 
 
 def two_gaussian_log_likelihood(features, mask) -> TwoGaussianFit:
@@ -109,26 +111,33 @@ def two_gaussian_log_likelihood(features, mask) -> TwoGaussianFit:
     flat = np.asarray(features, dtype=np.float64).reshape(mask.size, -1)
     stride = max(1, mask.size // _SAMPLE)
     sample = flat[::stride]
+    totals = (float(len(sample)), sample.sum(axis=0), (sample ** 2).sum(axis=0))
     foreground = mask.ravel()[::stride].astype(np.float64)
     for _ in range(_ITERATIONS):
-        weights, means, variance = _m_step(sample, foreground)
-        dens = _log_densities(sample, weights, means, variance)
-        foreground = 1.0 / (1.0 + np.exp(np.clip(dens[:, 1] - dens[:, 0], -50.0, 50.0)))
-    weights, means, variance = _m_step(sample, foreground)
-    dens = _log_densities(flat, weights, means, variance)
-    llr = np.clip(dens[:, 0] - dens[:, 1], -_LLR_LIMIT, _LLR_LIMIT).reshape(mask.shape)
+        a, b = _linear_ratio(*_m_step(sample, foreground, totals))
+        # with one shared variance the class log-odds are linear in the features
+        foreground = 1.0 / (1.0 + np.exp(-np.clip(sample @ a + b, -50.0, 50.0)))
+    weights, means, variance = _m_step(sample, foreground, totals)
+    a, b = _linear_ratio(weights, means, variance)
+    llr = np.clip(flat @ a + b, -_LLR_LIMIT, _LLR_LIMIT).reshape(mask.shape)
     separation = float(np.sqrt((((means[0] - means[1]) ** 2) / variance).sum()))
     return TwoGaussianFit(log_likelihood_ratio=llr, separation=separation,
                           foreground_weight=float(weights[0]))
 
 
-def _m_step(sample, foreground):
-    """Weights, means and the shared (weight-averaged) diagonal variance."""
-    resp = np.stack([foreground, 1.0 - foreground], axis=1)
-    counts = resp.sum(axis=0) + 1e-9
+def _m_step(sample, foreground, totals):
+    """Weights, means and the shared (weight-averaged) diagonal variance.
+
+    ``totals`` are the count, sum and sum of squares of the whole sample; the
+    background's moments are the totals minus the foreground's.
+    """
+    n, sums, squares = totals
+    fg = (float(foreground.sum()), foreground @ sample, foreground @ (sample ** 2))
+    counts = np.array([fg[0], n - fg[0]]) + 1e-9
+    firsts = np.stack([fg[1], sums - fg[1]])
+    seconds = np.stack([fg[2], squares - fg[2]])
     weights = counts / counts.sum()
-    means = (resp.T @ sample) / counts[:, None]
-    own = np.stack([(resp[:, j:j + 1] * (sample - means[j]) ** 2).sum(axis=0) / counts[j]
-                    for j in range(2)])
+    means = firsts / counts[:, None]
+    own = np.maximum(seconds / counts[:, None] - means ** 2, 0.0)
     variance = (weights[:, None] * (own + _VARIANCE_FLOOR)).sum(axis=0)
     return weights, means, variance
