@@ -133,12 +133,20 @@ def list_image_files(path: Path) -> list:
     return sorted((item.input, Path(item.path)) for item in find_inputs([path]).items)
 
 
+def is_image_folder(path) -> bool:
+    """True for a folder of images; a Zarr store (a folder on disk) is one image."""
+    from segcut.io_zarr import is_zarr_store
+
+    path = Path(path)
+    return path.is_dir() and not is_zarr_store(path)
+
+
 def collect_files(paths, *, name: str) -> FileSet:
     """Key the given files and the image files under the given folders."""
     found = FileSet(name=name)
     for p in paths:
         p = Path(p)
-        entries = list_image_files(p) if p.is_dir() else [(p.name, p)]
+        entries = list_image_files(p) if is_image_folder(p) else [(p.name, p)]
         for relative, f in entries:
             key = _key(relative)
             if key in found.duplicates:

@@ -302,3 +302,23 @@ def test_mapped_float_zarr_gets_its_non_finite_values_replaced_in_the_mapping(tm
     assert data.array[10, 11, 2] == np.median(values[..., 2][np.isfinite(values[..., 2])])
     assert np.isfinite(data.array).all() and any("NaN or infinite" in w for w in data.warnings)
     assert np.isnan(zarr.open_array(str(store), mode="r")[3, 4, 0])  # the store is untouched
+
+
+def test_cli_score_and_compare_take_a_zarr_store_as_one_image(tmp_path, capsys):
+    # a .zarr folder is one image for score (and its mask for compare), not a folder of images
+    from segcut_cli.main import main
+
+    image, truth = _scene(6, shape=(120, 110))
+    store = _ome(tmp_path / "one.zarr", image)
+    assert main(["split", str(store), "-o", str(tmp_path / "run"), "--quiet"]) == 0
+    mask_path = tmp_path / "run/masks/one.png"
+    capsys.readouterr()
+    assert main(["score", str(store), str(mask_path), "--json"]) == 0
+    scored = json.loads(capsys.readouterr().out)
+    assert "one" in json.dumps(scored) and '"error"' not in json.dumps(scored)
+    mask_store = tmp_path / "truth.zarr"
+    zarr.open_array(str(mask_store), mode="w", shape=truth.shape, chunks=(32, 32),
+                    dtype="u1")[...] = truth.astype(np.uint8) * 255
+    assert main(["compare", "-r", str(mask_store), str(mask_path), "--json"]) == 0
+    compared = json.loads(capsys.readouterr().out)
+    assert "iou" in json.dumps(compared)
