@@ -190,21 +190,53 @@ def learn_colour_words(colours, weights, n_words: int, *, n_iter: int = 15) -> n
 
 
 @njit(cache=True)
-def _nearest_centre(pixels, centres, out):
-    n, c = pixels.shape
-    k = centres.shape[0]
-    for i in range(n):
-        best = 0
-        best_d = np.inf
-        for j in range(k):
-            d = 0.0
-            for ch in range(c):
-                t = pixels[i, ch] - centres[j, ch]
-                d += t * t
-            if d < best_d:
-                best_d = d
-                best = j
-        out[i] = best
+def _nearest_in_block(planes, centres, j, start, stop, best, out):
+    """Compare centre ``j`` with the pixels ``start .. stop - 1`` (one branch-free loop)."""
+    n_channels = planes.shape[0]
+    p0 = planes[0]
+    c0 = centres[j, 0]
+    if n_channels == 3:
+        p1, p2 = planes[1], planes[2]
+        c1, c2 = centres[j, 1], centres[j, 2]
+        q0, q1, q2, o = p0[start:stop], p1[start:stop], p2[start:stop], out[start:stop]
+        for i in range(stop - start):
+            t0 = q0[i] - c0
+            t1 = q1[i] - c1
+            t2 = q2[i] - c2
+            d = t0 * t0 + t1 * t1 + t2 * t2
+            b = best[i]
+            closer = d < b
+            best[i] = min(d, b)
+            o[i] = j if closer else o[i]
+        return
+    q0, o = p0[start:stop], out[start:stop]
+    for i in range(stop - start):
+        t = q0[i] - c0
+        d = t * t
+        for ch in range(1, n_channels):
+            t = planes[ch, start + i] - centres[j, ch]
+            d += t * t
+        b = best[i]
+        closer = d < b
+        best[i] = min(d, b)
+        o[i] = j if closer else o[i]
+
+
+@njit(cache=True)
+def _nearest_centre(planes, centres, out):
+    """Index of the nearest centre (the first among equal distances) of every pixel.
+
+    ``planes`` holds the channels as rows (C, n); ``out`` must start at 0. Pixels
+    are taken in blocks that stay in cache, each compared with one centre at a time.
+    """
+    n = planes.shape[1]
+    block = 2048
+    best = np.empty(block, dtype=np.float64)
+    for start in range(0, n, block):
+        stop = min(start + block, n)
+        best[:] = np.inf
+        for j in range(centres.shape[0]):
+            _nearest_in_block(planes, centres, j, start, stop, best, out)
 
 
 def assign_colour_words(features, centres) -> np.ndarray:
@@ -216,9 +248,9 @@ def assign_colour_words(features, centres) -> np.ndarray:
     array([[0, 1]])
     """
     features = np.asarray(features, dtype=np.float64)
-    pixels = np.ascontiguousarray(features.reshape(-1, features.shape[-1]))
-    out = np.empty(pixels.shape[0], dtype=np.int64)
-    _nearest_centre(pixels, np.ascontiguousarray(centres, dtype=np.float64), out)
+    planes = np.ascontiguousarray(features.reshape(-1, features.shape[-1]).T)
+    out = np.zeros(planes.shape[1], dtype=np.int64)
+    _nearest_centre(planes, np.ascontiguousarray(centres, dtype=np.float64), out)
     return out.reshape(features.shape[:-1])
 
 
