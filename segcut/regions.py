@@ -1,9 +1,10 @@
 """Region features and region adjacency, vectorised over pixels.
 
-Everything here is computed with ``np.bincount`` and ``np.unique`` over whole
-label images (no per-pixel Python loops), in 2-D and 3-D alike. The one pixel loop
-that numpy cannot express cheaply, the nearest colour word of every pixel, is a
-small numba kernel.
+Region statistics are computed with ``np.bincount`` over whole label images (no
+per-pixel Python loops), in 2-D and 3-D alike. The pixel loops numpy cannot
+express cheaply are small numba kernels: the pairs of touching regions (one pass
+over the neighbour pixel pairs with a hash table) and the nearest colour word of
+every pixel.
 """
 
 from __future__ import annotations
@@ -85,6 +86,56 @@ class RegionFeatures:
         return int(self.area.shape[0])
 
 
+@njit(cache=True)
+def _slot(table_keys, table_slots, key, n_used):
+    """Open-addressing lookup of ``key``; inserts it with slot ``n_used`` when absent.
+    Returns ``(slot, n_used)``."""
+    mask = table_keys.shape[0] - 1
+    h = (key * 0x9E3779B97F4A7C15) & mask
+    while True:
+        if table_keys[h] == key:
+            return table_slots[h], n_used
+        if table_keys[h] < 0:
+            table_keys[h] = key
+            table_slots[h] = n_used
+            return n_used, n_used + 1
+        h = (h + 1) & mask
+
+
+@njit(cache=True)
+def _adjacent_pairs(labels, features, use_features, n, table_size):
+    """Pairs of different labels along each axis (axes in order, pixels in C order):
+    their keys ``min * n + max`` in order of first sight, pixel-pair counts and
+    summed feature distances (added in the order the pairs are met)."""
+    depth, height, width = labels.shape
+    table_keys = np.full(table_size, -1, dtype=np.int64)
+    table_slots = np.empty(table_size, dtype=np.int64)
+    keys = np.empty(table_size // 2, dtype=np.int64)
+    counts = np.zeros(table_size // 2, dtype=np.int64)
+    sums = np.zeros(table_size // 2, dtype=np.float64)
+    used = 0
+    for axis in range(3):
+        dz, dy, dx = (1, 0, 0) if axis == 0 else ((0, 1, 0) if axis == 1 else (0, 0, 1))
+        for z in range(depth - dz):
+            for y in range(height - dy):
+                for x in range(width - dx):
+                    a = labels[z, y, x]
+                    b = labels[z + dz, y + dy, x + dx]
+                    if a == b:
+                        continue
+                    key = min(a, b) * n + max(a, b)
+                    slot, used = _slot(table_keys, table_slots, key, used)
+                    keys[slot] = key
+                    counts[slot] += 1
+                    if use_features:
+                        d = 0.0
+                        for c in range(features.shape[3]):
+                            t = features[z, y, x, c] - features[z + dz, y + dy, x + dx, c]
+                            d += t * t
+                        sums[slot] += np.sqrt(d)
+    return keys[:used], counts[:used], sums[:used]
+
+
 def region_adjacency(labels, features=None) -> RegionAdjacency:
     """Neighbour pairs of a label image with shared border length and boundary contrast.
 
@@ -106,27 +157,22 @@ def region_adjacency(labels, features=None) -> RegionAdjacency:
     >>> adj.rows, adj.cols, adj.border
     (array([0, 0, 1]), array([1, 2, 2]), array([1., 2., 1.]))
     """
-    labels = np.asarray(labels)
+    labels = np.asarray(labels, dtype=np.int64)
     n = int(labels.max()) + 1 if labels.size else 0
-    keys, diffs = [], []
-    for axis in range(labels.ndim):
-        a = _slice_axis(labels, axis, 0)
-        b = _slice_axis(labels, axis, 1)
-        differ = a != b
-        la = a[differ].astype(np.int64)
-        lb = b[differ].astype(np.int64)
-        keys.append(np.minimum(la, lb) * n + np.maximum(la, lb))
-        if features is not None:
-            fa = _slice_axis(features, axis, 0)[differ]
-            fb = _slice_axis(features, axis, 1)[differ]
-            diffs.append(np.sqrt(np.sum((fa - fb) ** 2, axis=-1)))
-    key = np.concatenate(keys) if keys else np.zeros(0, np.int64)
-    uniq, inverse, counts = np.unique(key, return_inverse=True, return_counts=True)
-    if features is not None and uniq.size:
-        contrast = np.bincount(inverse, weights=np.concatenate(diffs), minlength=uniq.size) / counts
+    volume = labels.reshape((1,) * (3 - labels.ndim) + labels.shape)
+    if features is None:
+        feats = np.zeros(volume.shape + (1,))
     else:
-        contrast = np.zeros(uniq.size)
-    return RegionAdjacency(rows=uniq // max(n, 1), cols=uniq % max(n, 1),
+        feats = np.asarray(features, dtype=np.float64).reshape(volume.shape + (-1,))
+    differing = sum(int(np.count_nonzero(_slice_axis(volume, axis, 0)
+                                         != _slice_axis(volume, axis, 1))) for axis in range(3))
+    table_size = 1 << max(2, (2 * differing + 1).bit_length())
+    keys, counts, sums = _adjacent_pairs(np.ascontiguousarray(volume), np.ascontiguousarray(feats),
+                                         features is not None, max(n, 1), table_size)
+    order = np.argsort(keys, kind="stable")
+    keys, counts, sums = keys[order], counts[order], sums[order]
+    contrast = sums / counts if features is not None else np.zeros(keys.size)
+    return RegionAdjacency(rows=keys // max(n, 1), cols=keys % max(n, 1),
                            border=counts.astype(np.float64), contrast=contrast.astype(np.float64))
 
 
