@@ -51,26 +51,35 @@ def _bucket_centres(centres, alive, cell, n_cells):
 
 
 @njit(cache=True)
-def _tile_candidates(centres, steps, shape, lo, hi, cell, n_cells, first, order, found):
-    """Centres whose window meets the tile ``lo..hi`` (exclusive), in increasing order.
+def _cell_span(lo, hi, steps, cell, n_cells, a):
+    """Grid cells (first, last + 1) along axis ``a`` that may hold a centre reaching the tile."""
+    first = max(int(np.floor((lo[a] - 2 * steps[a] - 1) / cell[a])), 0)
+    last = min(int(np.floor((hi[a] + 2 * steps[a]) / cell[a])), n_cells[a] - 1)
+    return first, last + 1
 
-    Writes their indices to ``found``; returns how many.
+
+@njit(cache=True)
+def _tile_candidates(windows, steps, lo, hi, cell, n_cells, first, order, found):
+    """Centres whose window (rows of ``windows``: z0, z1, y0, y1, x0, x1) meets the tile
+    ``lo..hi`` (exclusive), in increasing order. Writes their indices to ``found``;
+    returns how many.
+
+    A centre at ``c`` reaches the tile only when ``lo - 2 step - 1 < c < hi + 2 step``,
+    so only the grid cells holding such positions are searched.
     """
     count = 0
-    t = np.empty(3, dtype=np.int64)
-    reach = np.empty(3, dtype=np.int64)
-    for a in range(3):
-        t[a] = lo[a] // cell[a]
-        reach[a] = int(2 * steps[a] + 1) // cell[a] + 2
-    for cz in range(max(t[0] - reach[0], 0), min(t[0] + reach[0] + 1, n_cells[0])):
-        for cy in range(max(t[1] - reach[1], 0), min(t[1] + reach[1] + 1, n_cells[1])):
-            for cx in range(max(t[2] - reach[2], 0), min(t[2] + reach[2] + 1, n_cells[2])):
+    z0, z1 = _cell_span(lo, hi, steps, cell, n_cells, 0)
+    y0, y1 = _cell_span(lo, hi, steps, cell, n_cells, 1)
+    x0, x1 = _cell_span(lo, hi, steps, cell, n_cells, 2)
+    for cz in range(z0, z1):
+        for cy in range(y0, y1):
+            for cx in range(x0, x1):
                 c = (cz * n_cells[1] + cy) * n_cells[2] + cx
                 for i in range(first[c], first[c + 1]):
                     k = order[i]
-                    z0, z1, y0, y1, x0, x1 = _window(centres, k, steps, shape)
-                    if (z0 >= hi[0] or z1 <= lo[0] or y0 >= hi[1] or y1 <= lo[1]
-                            or x0 >= hi[2] or x1 <= lo[2]):
+                    if (windows[k, 0] >= hi[0] or windows[k, 1] <= lo[0]
+                            or windows[k, 2] >= hi[1] or windows[k, 3] <= lo[1]
+                            or windows[k, 4] >= hi[2] or windows[k, 5] <= lo[2]):
                         continue
                     j = count
                     while j > 0 and found[j - 1] > k:
@@ -82,28 +91,47 @@ def _tile_candidates(centres, steps, shape, lo, hi, cell, n_cells, first, order,
 
 
 @njit(cache=True)
-def _gather_tile(planes, labels, shape, lo, hi, tile):
-    """Copy a tile's pixels to the contiguous buffers of ``tile``; returns their number."""
-    colour, zs, ys, xs, own, flat = tile
-    n = 0
-    for z in range(lo[0], hi[0]):
-        for y in range(lo[1], hi[1]):
-            base = (z * shape[1] + y) * shape[2]
-            for x in range(lo[2], hi[2]):
-                for c in range(planes.shape[0]):
-                    colour[c, n] = planes[c, base + x]
-                zs[n], ys[n], xs[n] = z, y, x
-                own[n] = labels[base + x]
-                flat[n] = base + x
-                n += 1
-    return n
+def tile_order(planes, shape, cell, n_cells):
+    """The pixels regrouped tile by tile (tiles and the pixels in them in C order).
+
+    Returns ``(colour, zs, ys, xs, own, flat)``: colour planes, coordinates (as
+    floats), a label buffer and the flat index of every pixel in tile order, and
+    ``start`` (where each tile begins).
+    """
+    n = planes.shape[1]
+    colour = np.empty((planes.shape[0], n), dtype=np.float64)
+    zs, ys, xs = np.empty(n), np.empty(n), np.empty(n)
+    flat = np.empty(n, dtype=np.int64)
+    start = np.zeros(n_cells[0] * n_cells[1] * n_cells[2] + 1, dtype=np.int64)
+    i = 0
+    t = 0
+    for tz in range(n_cells[0]):
+        for ty in range(n_cells[1]):
+            for tx in range(n_cells[2]):
+                for z in range(tz * cell[0], min((tz + 1) * cell[0], shape[0])):
+                    for y in range(ty * cell[1], min((ty + 1) * cell[1], shape[1])):
+                        base = (z * shape[1] + y) * shape[2]
+                        for x in range(tx * cell[2], min((tx + 1) * cell[2], shape[2])):
+                            for c in range(planes.shape[0]):
+                                colour[c, i] = planes[c, base + x]
+                            zs[i], ys[i], xs[i] = z, y, x
+                            flat[i] = base + x
+                            i += 1
+                t += 1
+                start[t] = i
+    return (colour, zs, ys, xs, np.empty(n, dtype=np.int64), flat), start
 
 
 @njit(cache=True)
-def _assign_tile(centres, k, steps, spatial_weight, tile, n, best):
-    """Compare centre ``k`` with the ``n`` pixels of a gathered tile (branch-free loop)."""
-    colour, zs, ys, xs, own, _ = tile
+def _assign_tile(centres, k, steps, spatial_weight, pixels, s0, n, best):
+    """Compare centre ``k`` with the ``n`` pixels of a tile starting at ``s0`` in the
+    tile-ordered ``pixels`` (one branch-free loop)."""
+    colour, zs_all, ys_all, xs_all, own_all, _ = pixels
+    zs, ys, xs, own = zs_all[s0:s0 + n], ys_all[s0:s0 + n], xs_all[s0:s0 + n], own_all[s0:s0 + n]
     n_channels = colour.shape[0]
+    q0 = colour[0, s0:s0 + n]
+    q1 = colour[min(1, n_channels - 1), s0:s0 + n]
+    q2 = colour[min(2, n_channels - 1), s0:s0 + n]
     cz, cy, cx = centres[k, 0], centres[k, 1], centres[k, 2]
     z0 = int(max(cz - 2 * steps[0], 0.0))
     z1 = int(cz + 2 * steps[0] + 1)
@@ -116,16 +144,16 @@ def _assign_tile(centres, k, steps, spatial_weight, tile, n, best):
     for i in range(n):
         z, y, x = zs[i], ys[i], xs[i]
         d = ((cz - z) * (cz - z) + (cy - y) * (cy - y) + (cx - x) * (cx - x)) * spatial_weight
-        t = colour[0, i] - m0
+        t = q0[i] - m0
         tone = t * t
         if n_channels == 3:
-            t = colour[c1, i] - m1
+            t = q1[i] - m1
             tone += t * t
-            t = colour[c2, i] - m2
+            t = q2[i] - m2
             tone += t * t
         else:
             for c in range(1, n_channels):
-                t = colour[c, i] - centres[k, 3 + c]
+                t = colour[c, s0 + i] - centres[k, 3 + c]
                 tone += t * t
         d += tone
         inside = (z0 <= z) & (z < z1) & (y0 <= y) & (y < y1) & (x0 <= x) & (x < x1)
@@ -135,16 +163,55 @@ def _assign_tile(centres, k, steps, spatial_weight, tile, n, best):
 
 
 @njit(cache=True)
-def slic_assign(planes, centres, alive, steps, spatial_weight, shape, labels):
+def _tile_upper_bound(centres, alive, steps, spatial_weight, pixels, s0, n):
+    """Largest distance of a tile's pixels to the centres they had (inf when one of
+    those centres is gone or no longer reaches its pixel): no pixel of the tile
+    ends farther than this from its nearest centre."""
+    colour, zs, ys, xs, own, _ = pixels
+    worst = 0.0
+    for i in range(s0, s0 + n):
+        k = own[i]
+        if k < 0 or not alive[k]:
+            return np.inf
+        z, y, x = zs[i], ys[i], xs[i]
+        cz, cy, cx = centres[k, 0], centres[k, 1], centres[k, 2]
+        if not (int(max(cz - 2 * steps[0], 0.0)) <= z < int(cz + 2 * steps[0] + 1)
+                and int(max(cy - 2 * steps[1], 0.0)) <= y < int(cy + 2 * steps[1] + 1)
+                and int(max(cx - 2 * steps[2], 0.0)) <= x < int(cx + 2 * steps[2] + 1)):
+            return np.inf
+        d = ((cz - z) * (cz - z) + (cy - y) * (cy - y) + (cx - x) * (cx - x)) * spatial_weight
+        tone = 0.0
+        for c in range(colour.shape[0]):
+            t = colour[c, i] - centres[k, 3 + c]
+            tone += t * t
+        worst = max(worst, d + tone)
+    return worst
+
+
+@njit(cache=True)
+def _box_distance(centres, k, lo, hi, spatial_weight):
+    """Spatial part of the distance from centre ``k`` to the nearest pixel of the box
+    ``lo..hi``, computed so that it never exceeds the computed distance to any pixel
+    of it (the same operations on smaller or equal gaps)."""
+    gz = max(lo[0] - centres[k, 0], 0.0, centres[k, 0] - (hi[0] - 1))
+    gy = max(lo[1] - centres[k, 1], 0.0, centres[k, 1] - (hi[1] - 1))
+    gx = max(lo[2] - centres[k, 2], 0.0, centres[k, 2] - (hi[2] - 1))
+    return (gz * gz + gy * gy + gx * gx) * spatial_weight
+
+
+@njit(cache=True)
+def slic_assign(pixels, start, centres, alive, steps, spatial_weight, shape, labels):
     """One assignment sweep: each pixel to its nearest centre among those in reach.
 
-    ``planes`` (C, n) holds the colour channels (C = 1 or 3), ``labels`` (n,)
-    the flat pixels of a (D, H, W) image. A pixel takes the
-    centre at the smallest distance, the lowest index among equal distances (a
-    sweep over the centres in index order with a strict comparison). The image
-    is visited in tiles of one grid step, copied to contiguous buffers and
-    compared with the centres whose window meets it in one long loop each. ``labels`` of pixels out of
-    every window keep their value. Returns the number of (tile, centre) pairs.
+    ``pixels, start`` are the image in tile order (:func:`tile_order`, tiles of
+    one grid step); ``labels`` (n,) the flat labels of a (D, H, W) image. A pixel
+    takes the centre at the smallest distance, the lowest index among equal
+    distances (a sweep over the centres in index order with a strict
+    comparison). Each tile is compared with the centres whose window meets it,
+    one long branch-free loop per centre; a centre farther from the whole tile
+    than any of its pixels is from the centre it had is skipped (it cannot be
+    nearest). ``labels`` of pixels out of every window keep their value.
+    Returns the number of (tile, centre) pairs.
     """
     cell = np.empty(3, dtype=np.int64)
     n_cells = np.empty(3, dtype=np.int64)
@@ -152,30 +219,38 @@ def slic_assign(planes, centres, alive, steps, spatial_weight, shape, labels):
         cell[a] = max(int(steps[a]), 1)
         n_cells[a] = (shape[a] + cell[a] - 1) // cell[a]
     first, order = _bucket_centres(centres, alive, cell, n_cells)
+    windows = np.empty((centres.shape[0], 6), dtype=np.int64)
+    for k in range(centres.shape[0]):
+        windows[k, 0], windows[k, 1], windows[k, 2], windows[k, 3], windows[k, 4], \
+            windows[k, 5] = _window(centres, k, steps, shape)
     found = np.empty(centres.shape[0], dtype=np.int64)
     lo = np.empty(3, dtype=np.int64)
     hi = np.empty(3, dtype=np.int64)
-    size = cell[0] * cell[1] * cell[2]
-    tile = (np.empty((planes.shape[0], size), dtype=np.float64), np.empty(size, dtype=np.float64),
-            np.empty(size, dtype=np.float64), np.empty(size, dtype=np.float64),
-            np.empty(size, dtype=np.int64), np.empty(size, dtype=np.int64))
-    best = np.empty(size, dtype=np.float64)
+    best = np.empty(cell[0] * cell[1] * cell[2], dtype=np.float64)
+    colour, zs, ys, xs, own, flat = pixels
+    for i in range(flat.shape[0]):
+        own[i] = labels[flat[i]]
     pairs = 0
+    t = 0
     for tz in range(n_cells[0]):
         for ty in range(n_cells[1]):
             for tx in range(n_cells[2]):
                 lo[0], lo[1], lo[2] = tz * cell[0], ty * cell[1], tx * cell[2]
                 for a in range(3):
                     hi[a] = min(lo[a] + cell[a], shape[a])
-                m = _tile_candidates(centres, steps, shape, lo, hi, cell, n_cells, first, order,
-                                     found)
-                n = _gather_tile(planes, labels, shape, lo, hi, tile)
+                m = _tile_candidates(windows, steps, lo, hi, cell, n_cells, first, order, found)
+                s0, s1 = start[t], start[t + 1]
+                n = s1 - s0
                 best[:n] = np.inf
+                reach = _tile_upper_bound(centres, alive, steps, spatial_weight, pixels, s0, n)
                 for j in range(m):
-                    _assign_tile(centres, found[j], steps, spatial_weight, tile, n, best)
-                for i in range(n):
-                    labels[tile[5][i]] = tile[4][i]
+                    if _box_distance(centres, found[j], lo, hi, spatial_weight) > reach:
+                        continue  # farther from every pixel of the tile than its own centre
+                    _assign_tile(centres, found[j], steps, spatial_weight, pixels, s0, n, best)
                 pairs += m
+                t += 1
+    for i in range(flat.shape[0]):
+        labels[flat[i]] = own[i]
     return pairs
 
 
@@ -214,8 +289,15 @@ def slic_iterate(planes, shape, centres, steps, spatial_weight, n_iterations, la
     """``n_iterations`` assignment and update sweeps (fewer when no centre reaches a pixel)."""
     alive = np.ones(centres.shape[0], dtype=np.bool_)
     counts = np.zeros(centres.shape[0], dtype=np.int64)
+    cell = np.empty(3, dtype=np.int64)
+    n_cells = np.empty(3, dtype=np.int64)
+    for a in range(3):
+        cell[a] = max(int(steps[a]), 1)
+        n_cells[a] = (shape[a] + cell[a] - 1) // cell[a]
+    pixels, start = tile_order(planes, shape, cell, n_cells)
     for _ in range(n_iterations):
-        if slic_assign(planes, centres, alive, steps, spatial_weight, shape, labels) == 0:
+        if slic_assign(pixels, start, centres, alive, steps, spatial_weight, shape,
+                       labels) == 0:
             break
         slic_update(planes, shape, labels, centres, alive, counts)
 
