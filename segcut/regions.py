@@ -176,6 +176,44 @@ def region_adjacency(labels, features=None) -> RegionAdjacency:
                            border=counts.astype(np.float64), contrast=contrast.astype(np.float64))
 
 
+@njit(cache=True)
+def _lloyd(colours, weights, centres, n_iter):
+    """Weighted Lloyd iterations from ``centres``: nearest centre (the first among
+    equal squared distances), weighted means (sums in the order of the colours; a
+    centre left without colours stays), stop when the centres move less than
+    numpy's ``allclose`` tolerance (rtol 1e-5, atol 1e-8)."""
+    n, n_channels = colours.shape
+    k = centres.shape[0]
+    nearest = np.empty(n, dtype=np.int64)
+    for _ in range(n_iter):
+        for i in range(n):
+            best, best_d = 0, np.inf
+            for j in range(k):
+                t = colours[i, 0] - centres[j, 0]
+                d = t * t
+                for c in range(1, n_channels):
+                    t = colours[i, c] - centres[j, c]
+                    d += t * t
+                if d < best_d:
+                    best, best_d = j, d
+            nearest[i] = best
+        total = np.zeros(k)
+        new = np.zeros((k, n_channels))
+        for i in range(n):
+            total[nearest[i]] += weights[i]
+            for c in range(n_channels):
+                new[nearest[i], c] += weights[i] * colours[i, c]
+        close = True
+        for j in range(k):
+            for c in range(n_channels):
+                new[j, c] = new[j, c] / total[j] if total[j] > 0 else centres[j, c]
+                close &= abs(new[j, c] - centres[j, c]) <= 1e-8 + 1e-5 * abs(centres[j, c])
+        centres = new
+        if close:
+            break
+    return centres
+
+
 def learn_colour_words(colours, weights, n_words: int, *, n_iter: int = 15) -> np.ndarray:
     """Weighted k-means centres ("colour words") of a set of colours.
 
@@ -218,19 +256,7 @@ def learn_colour_words(colours, weights, n_words: int, *, n_iter: int = 15) -> n
     cum /= cum[-1]
     targets = (np.arange(k) + 0.5) / k
     centres = colours[order[np.searchsorted(cum, targets).clip(0, len(order) - 1)]].copy()
-    for _ in range(n_iter):
-        d = ((colours[:, None, :] - centres[None, :, :]) ** 2).sum(-1)
-        nearest = np.argmin(d, axis=1)
-        wsum = np.bincount(nearest, weights=weights, minlength=k)
-        new = np.stack([np.bincount(nearest, weights=weights * colours[:, c], minlength=k)
-                        for c in range(colours.shape[1])], axis=1)
-        filled = wsum > 0
-        new[filled] /= wsum[filled, None]
-        new[~filled] = centres[~filled]
-        if np.allclose(new, centres):
-            centres = new
-            break
-        centres = new
+    centres = _lloyd(colours, weights, np.ascontiguousarray(centres), int(n_iter))
     order = np.lexsort(tuple(centres.T[::-1]))
     return centres[order]
 
