@@ -351,3 +351,44 @@ def connect_labels(labels, min_size, max_size):
                 else:
                     next_label += 1
     return out
+
+
+@njit(cache=True)
+def _reflected(i, n):
+    """Index ``i`` folded into ``0 .. n - 1`` by mirror reflection about the edges
+    (``d c b a | a b c d | d c b a``)."""
+    period = 2 * n
+    i = i % period
+    return i if i < n else period - 1 - i
+
+
+@njit(cache=True)
+def correlate_symmetric(image, n_after, weights, out):
+    """Correlate lines of a symmetric odd kernel along the middle axis of an (A, L, B)
+    array given as ``image`` (A, L * B) with ``n_after = B``.
+
+    ``out[a, l, b] = w_r x_l + sum_{j = r .. 1} (x_{l-j} + x_{l+j}) w_{r-j}`` with the
+    line extended by mirror reflection, the terms added in that order. Away from
+    the ends each term is one long loop over the contiguous ``(L, B)`` block.
+    """
+    n_before = image.shape[0]
+    length = image.shape[1] // n_after
+    r = weights.shape[0] // 2
+    inner_lo, inner_hi = min(r, length), max(length - r, min(r, length))
+    for a in range(n_before):
+        src = image[a]
+        row = out[a]
+        for i in range(length * n_after):
+            row[i] = src[i] * weights[r]
+        for j in range(r, 0, -1):
+            w = weights[r - j]
+            shift = j * n_after
+            for i in range(inner_lo * n_after, inner_hi * n_after):
+                row[i] += (src[i - shift] + src[i + shift]) * w
+            for l in range(length):
+                if inner_lo <= l < inner_hi:
+                    continue
+                first = _reflected(l - j, length) * n_after
+                second = _reflected(l + j, length) * n_after
+                for b in range(n_after):
+                    row[l * n_after + b] += (src[first + b] + src[second + b]) * w

@@ -91,3 +91,14 @@ def test_slic_equals_scikit_image_on_a_photograph():
     _, expected = np.unique(expected, return_inverse=True)
     labels = oversegment(lab, n_superpixels=400)
     assert np.array_equal(labels, expected.reshape(labels.shape))
+
+
+@pytest.mark.parametrize("shape", [(60, 70, 3), (7, 5, 1), (3, 20, 30, 2), (2, 9, 1)])
+@pytest.mark.parametrize("sigma", [0.1, 1.0, 2.3])
+def test_gaussian_smoothing_equals_scipy(shape, sigma):
+    # reference: scipy.ndimage.gaussian_filter, mirror edges, channels not smoothed
+    from segcut.superpixels import gaussian_smooth
+
+    image = np.random.default_rng(len(shape)).normal(50.0, 30.0, shape)
+    expected = ndi.gaussian_filter(image, [sigma] * (len(shape) - 1) + [0.0], mode="reflect")
+    assert np.array_equal(gaussian_smooth(image, sigma), expected)
