@@ -268,18 +268,51 @@ def _ldl_positive_definite(mat: sp.csc_array) -> bool:
     return bool(np.all(np.isfinite(pivots)) and np.all(pivots > 0.0))
 
 
-def _is_positive_definite(graph: SignedGraph, diagonal: np.ndarray, dense: bool) -> bool:
-    """Factorisation test of ``Diag(diagonal) + W/4``: Cholesky (dense) or LDL^T pivots."""
+class _SparseShifted:
+    """``Diag(diagonal) + W/4`` in CSC form: the structure is built once per graph and
+    only the diagonal changes between factorisations (the same matrix as
+    :func:`_sparse_shifted` whenever no diagonal entry is exactly 0)."""
+
+    def __init__(self, graph: SignedGraph):
+        n = graph.n_vertices
+        # W is symmetric: its CSR rows are its CSC columns; insert each diagonal entry
+        # after the rows above it
+        columns = np.repeat(np.arange(n), np.diff(graph.indptr))
+        above = np.bincount(columns[graph.indices < columns], minlength=n)
+        indptr = graph.indptr + np.arange(n + 1)
+        self.diagonal_at = indptr[:-1] + above
+        off = np.ones(int(indptr[-1]), dtype=bool)
+        off[self.diagonal_at] = False
+        indices = np.empty(int(indptr[-1]), dtype=np.int64)
+        indices[off] = graph.indices
+        indices[self.diagonal_at] = np.arange(n)
+        data = np.zeros(int(indptr[-1]))
+        data[off] = graph.weights / 4.0
+        self.graph = graph
+        self.matrix = sp.csc_array((data, indices, indptr), shape=(n, n))
+
+    def with_diagonal(self, diagonal: np.ndarray) -> sp.csc_array:
+        if np.any(diagonal == 0.0):  # a sum of sparse matrices stores no zero entry
+            return _sparse_shifted(self.graph, diagonal)
+        self.matrix.data[self.diagonal_at] = diagonal
+        return self.matrix
+
+
+def _is_positive_definite(graph: SignedGraph, diagonal: np.ndarray, dense: bool,
+                          shifted: _SparseShifted | None = None) -> bool:
+    """Factorisation test of ``Diag(diagonal) + W/4``: Cholesky (dense) or LDL^T pivots.
+
+    Call it with at most one BLAS thread (:func:`_blas_threads`)."""
     if dense:
         try:
-            with _blas_threads(1):
-                sla.cholesky(_dense_shifted(graph, diagonal), lower=True, overwrite_a=True,
-                             check_finite=False)
+            sla.cholesky(_dense_shifted(graph, diagonal), lower=True, overwrite_a=True,
+                         check_finite=False)
         except sla.LinAlgError:
             return False
         return True
-    with _blas_threads(1):
+    if shifted is None:
         return _ldl_positive_definite(_sparse_shifted(graph, diagonal))
+    return _ldl_positive_definite(shifted.with_diagonal(diagonal))
 
 
 @contextlib.contextmanager
@@ -399,7 +432,15 @@ def certify_dual(graph, dual, *, target_shift: float = 0.0,
 
 def _certify(graph: SignedGraph, y: np.ndarray, *, target_shift: float,
              dense_limit: int, tighten: int = 3) -> _Certificate:
-    """Ladder of factorisations: the smallest confirmed shift near ``target_shift``."""
+    """Ladder of factorisations: the smallest confirmed shift near ``target_shift``
+    (every factorisation with one BLAS thread)."""
+    with _blas_threads(1):
+        return _certify_ladder(graph, y, target_shift=target_shift, dense_limit=dense_limit,
+                               tighten=tighten)
+
+
+def _certify_ladder(graph: SignedGraph, y: np.ndarray, *, target_shift: float,
+                    dense_limit: int, tighten: int) -> _Certificate:
     start = time.perf_counter()
     n = graph.n_vertices
     if n == 0:
@@ -409,6 +450,7 @@ def _certify(graph: SignedGraph, y: np.ndarray, *, target_shift: float,
     rows = np.repeat(np.arange(n), counts)
     abs_degrees = np.bincount(rows, weights=np.abs(graph.weights), minlength=n)
     dense = n <= dense_limit
+    shifted = None if dense else _SparseShifted(graph)
     # shift that makes Diag(y) - L/4 diagonally dominant, hence positive semidefinite
     gershgorin = max(0.0, float(np.max(abs_degrees / 4.0 - (y - degrees / 4.0))))
     attempts = 0
@@ -420,7 +462,7 @@ def _certify(graph: SignedGraph, y: np.ndarray, *, target_shift: float,
         total = shift + 2.0 * c + extra
         z = y + total
         c = _round_off_margin(graph, z, degrees, abs_degrees, counts)
-        if not _is_positive_definite(graph, (z - degrees / 4.0) - c, dense):
+        if not _is_positive_definite(graph, (z - degrees / 4.0) - c, dense, shifted):
             return None
         bound = float(np.nextafter(math.fsum(z), math.inf))
         return _Certificate(z, bound, True, total, c, attempts, 0.0)
