@@ -36,7 +36,7 @@ def sister_arcs(indptr, indices):
     return sister
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _push(queue, state, node):
     """Append ``node`` to the ring buffer ``queue`` (state: head, size) unless queued."""
     if state[2 + node] == 0:
@@ -46,7 +46,7 @@ def _push(queue, state, node):
         state[2 + node] = 1
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _pop(queue, state):
     node = queue[state[0]]
     state[0] = (state[0] + 1) % queue.shape[0]
@@ -55,7 +55,7 @@ def _pop(queue, state):
     return node
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _grow(i, indptr, indices, sister, residual, tree, parent, stamp, dist, queue, active):
     """Grow the tree of active node ``i``; return an arc from the source tree to the
     sink tree when the trees touch, else -1."""
@@ -80,7 +80,7 @@ def _grow(i, indptr, indices, sister, residual, tree, parent, stamp, dist, queue
     return -1
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _augment(middle, indices, sister, residual, terminal, parent, orphans, orphan_state):
     """Push the bottleneck along the path through arc ``middle``; return the amount."""
     start, end = indices[sister[middle]], indices[middle]
@@ -116,7 +116,7 @@ def _augment(middle, indices, sister, residual, terminal, parent, orphans, orpha
     return amount
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _origin_distance(j, now, indices, parent, stamp, dist):
     """Path length from ``j`` up to its terminal, or ``_FAR`` when it meets an orphan;
     marks the nodes passed with ``now`` and their distances."""
@@ -145,7 +145,7 @@ def _origin_distance(j, now, indices, parent, stamp, dist):
     return total
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _adopt(i, now, indptr, indices, sister, residual, tree, parent, stamp, dist, queue, active,
            orphans, orphan_state):
     """Find orphan ``i`` a new parent in its tree, or free it (its children become orphans)."""
