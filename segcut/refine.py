@@ -80,16 +80,26 @@ def pixel_log_likelihood(words, mask, n_words, *, smoothing=1.0):
     return llr[words]
 
 
-def _neighbour_pairs(shape):
-    """Flat index pairs of 4- (2-D) or 6-connected (3-D, in-plane and across slices) pixels."""
-    index = np.arange(int(np.prod(shape)), dtype=np.int64).reshape(shape)
+def _neighbour_pairs(shape, touching=None):
+    """Flat index pairs of 4- (2-D) or 6-connected (3-D, in-plane and across slices) pixels.
+
+    Axis by axis, each in C order. With ``touching`` (a bool array of ``shape``),
+    only the pairs with at least one pixel in it.
+    """
+    shape = tuple(int(s) for s in shape)
     firsts, seconds = [], []
     for axis in range(len(shape)):
         lo = [slice(None)] * len(shape)
         hi = [slice(None)] * len(shape)
         lo[axis], hi[axis] = slice(0, -1), slice(1, None)
-        firsts.append(index[tuple(lo)].ravel())
-        seconds.append(index[tuple(hi)].ravel())
+        if touching is None:
+            where = np.nonzero(np.ones([s - (a == axis) for a, s in enumerate(shape)], bool))
+        else:
+            where = np.nonzero(touching[tuple(lo)] | touching[tuple(hi)])
+        first = np.ravel_multi_index(where, shape) if where[0].size else np.zeros(0, np.int64)
+        stride = int(np.prod(shape[axis + 1:]))
+        firsts.append(first.astype(np.int64))
+        seconds.append(first.astype(np.int64) + stride)
     return np.concatenate(firsts), np.concatenate(seconds)
 
 
@@ -178,9 +188,7 @@ def refine_with_llr(features, mask, llr, *, band=3, smoothness=8.0, strength=1.0
     vertex = np.full(mask.size, -1, dtype=np.int64)
     flat_band = in_band.ravel()
     vertex[flat_band] = np.arange(k)
-    p, q = _neighbour_pairs(mask.shape)
-    touch = flat_band[p] | flat_band[q]
-    p, q = p[touch], q[touch]
+    p, q = _neighbour_pairs(mask.shape, in_band)
     feats = features.reshape(mask.size, -1)
     d2 = ((feats[p] - feats[q]) ** 2).sum(axis=1)
     scale = float(np.mean(d2)) if d2.size else 1.0

@@ -1,9 +1,10 @@
 """Region features and region adjacency, vectorised over pixels.
 
-Everything here is computed with ``np.bincount`` and ``np.unique`` over whole
-label images (no per-pixel Python loops), in 2-D and 3-D alike. The one pixel loop
-that numpy cannot express cheaply, the nearest colour word of every pixel, is a
-small numba kernel.
+Region statistics are computed with ``np.bincount`` over whole label images (no
+per-pixel Python loops), in 2-D and 3-D alike. The pixel loops numpy cannot
+express cheaply are small numba kernels: the pairs of touching regions (one pass
+over the neighbour pixel pairs with a hash table) and the nearest colour word of
+every pixel.
 """
 
 from __future__ import annotations
@@ -85,6 +86,56 @@ class RegionFeatures:
         return int(self.area.shape[0])
 
 
+@njit(cache=True)
+def _slot(table_keys, table_slots, key, n_used):
+    """Open-addressing lookup of ``key``; inserts it with slot ``n_used`` when absent.
+    Returns ``(slot, n_used)``."""
+    mask = table_keys.shape[0] - 1
+    h = (key * 0x9E3779B97F4A7C15) & mask
+    while True:
+        if table_keys[h] == key:
+            return table_slots[h], n_used
+        if table_keys[h] < 0:
+            table_keys[h] = key
+            table_slots[h] = n_used
+            return n_used, n_used + 1
+        h = (h + 1) & mask
+
+
+@njit(cache=True)
+def _adjacent_pairs(labels, features, use_features, n, table_size):
+    """Pairs of different labels along each axis (axes in order, pixels in C order):
+    their keys ``min * n + max`` in order of first sight, pixel-pair counts and
+    summed feature distances (added in the order the pairs are met)."""
+    depth, height, width = labels.shape
+    table_keys = np.full(table_size, -1, dtype=np.int64)
+    table_slots = np.empty(table_size, dtype=np.int64)
+    keys = np.empty(table_size // 2, dtype=np.int64)
+    counts = np.zeros(table_size // 2, dtype=np.int64)
+    sums = np.zeros(table_size // 2, dtype=np.float64)
+    used = 0
+    for axis in range(3):
+        dz, dy, dx = (1, 0, 0) if axis == 0 else ((0, 1, 0) if axis == 1 else (0, 0, 1))
+        for z in range(depth - dz):
+            for y in range(height - dy):
+                for x in range(width - dx):
+                    a = labels[z, y, x]
+                    b = labels[z + dz, y + dy, x + dx]
+                    if a == b:
+                        continue
+                    key = min(a, b) * n + max(a, b)
+                    slot, used = _slot(table_keys, table_slots, key, used)
+                    keys[slot] = key
+                    counts[slot] += 1
+                    if use_features:
+                        d = 0.0
+                        for c in range(features.shape[3]):
+                            t = features[z, y, x, c] - features[z + dz, y + dy, x + dx, c]
+                            d += t * t
+                        sums[slot] += np.sqrt(d)
+    return keys[:used], counts[:used], sums[:used]
+
+
 def region_adjacency(labels, features=None) -> RegionAdjacency:
     """Neighbour pairs of a label image with shared border length and boundary contrast.
 
@@ -106,28 +157,61 @@ def region_adjacency(labels, features=None) -> RegionAdjacency:
     >>> adj.rows, adj.cols, adj.border
     (array([0, 0, 1]), array([1, 2, 2]), array([1., 2., 1.]))
     """
-    labels = np.asarray(labels)
+    labels = np.asarray(labels, dtype=np.int64)
     n = int(labels.max()) + 1 if labels.size else 0
-    keys, diffs = [], []
-    for axis in range(labels.ndim):
-        a = _slice_axis(labels, axis, 0)
-        b = _slice_axis(labels, axis, 1)
-        differ = a != b
-        la = a[differ].astype(np.int64)
-        lb = b[differ].astype(np.int64)
-        keys.append(np.minimum(la, lb) * n + np.maximum(la, lb))
-        if features is not None:
-            fa = _slice_axis(features, axis, 0)[differ]
-            fb = _slice_axis(features, axis, 1)[differ]
-            diffs.append(np.sqrt(np.sum((fa - fb) ** 2, axis=-1)))
-    key = np.concatenate(keys) if keys else np.zeros(0, np.int64)
-    uniq, inverse, counts = np.unique(key, return_inverse=True, return_counts=True)
-    if features is not None and uniq.size:
-        contrast = np.bincount(inverse, weights=np.concatenate(diffs), minlength=uniq.size) / counts
+    volume = labels.reshape((1,) * (3 - labels.ndim) + labels.shape)
+    if features is None:
+        feats = np.zeros(volume.shape + (1,))
     else:
-        contrast = np.zeros(uniq.size)
-    return RegionAdjacency(rows=uniq // max(n, 1), cols=uniq % max(n, 1),
+        feats = np.asarray(features, dtype=np.float64).reshape(volume.shape + (-1,))
+    differing = sum(int(np.count_nonzero(_slice_axis(volume, axis, 0)
+                                         != _slice_axis(volume, axis, 1))) for axis in range(3))
+    table_size = 1 << max(2, (2 * differing + 1).bit_length())
+    keys, counts, sums = _adjacent_pairs(np.ascontiguousarray(volume), np.ascontiguousarray(feats),
+                                         features is not None, max(n, 1), table_size)
+    order = np.argsort(keys, kind="stable")
+    keys, counts, sums = keys[order], counts[order], sums[order]
+    contrast = sums / counts if features is not None else np.zeros(keys.size)
+    return RegionAdjacency(rows=keys // max(n, 1), cols=keys % max(n, 1),
                            border=counts.astype(np.float64), contrast=contrast.astype(np.float64))
+
+
+@njit(cache=True)
+def _lloyd(colours, weights, centres, n_iter):
+    """Weighted Lloyd iterations from ``centres``: nearest centre (the first among
+    equal squared distances), weighted means (sums in the order of the colours; a
+    centre left without colours stays), stop when the centres move less than
+    numpy's ``allclose`` tolerance (rtol 1e-5, atol 1e-8)."""
+    n, n_channels = colours.shape
+    k = centres.shape[0]
+    nearest = np.empty(n, dtype=np.int64)
+    for _ in range(n_iter):
+        for i in range(n):
+            best, best_d = 0, np.inf
+            for j in range(k):
+                t = colours[i, 0] - centres[j, 0]
+                d = t * t
+                for c in range(1, n_channels):
+                    t = colours[i, c] - centres[j, c]
+                    d += t * t
+                if d < best_d:
+                    best, best_d = j, d
+            nearest[i] = best
+        total = np.zeros(k)
+        new = np.zeros((k, n_channels))
+        for i in range(n):
+            total[nearest[i]] += weights[i]
+            for c in range(n_channels):
+                new[nearest[i], c] += weights[i] * colours[i, c]
+        close = True
+        for j in range(k):
+            for c in range(n_channels):
+                new[j, c] = new[j, c] / total[j] if total[j] > 0 else centres[j, c]
+                close &= abs(new[j, c] - centres[j, c]) <= 1e-8 + 1e-5 * abs(centres[j, c])
+        centres = new
+        if close:
+            break
+    return centres
 
 
 def learn_colour_words(colours, weights, n_words: int, *, n_iter: int = 15) -> np.ndarray:
@@ -172,39 +256,59 @@ def learn_colour_words(colours, weights, n_words: int, *, n_iter: int = 15) -> n
     cum /= cum[-1]
     targets = (np.arange(k) + 0.5) / k
     centres = colours[order[np.searchsorted(cum, targets).clip(0, len(order) - 1)]].copy()
-    for _ in range(n_iter):
-        d = ((colours[:, None, :] - centres[None, :, :]) ** 2).sum(-1)
-        nearest = np.argmin(d, axis=1)
-        wsum = np.bincount(nearest, weights=weights, minlength=k)
-        new = np.stack([np.bincount(nearest, weights=weights * colours[:, c], minlength=k)
-                        for c in range(colours.shape[1])], axis=1)
-        filled = wsum > 0
-        new[filled] /= wsum[filled, None]
-        new[~filled] = centres[~filled]
-        if np.allclose(new, centres):
-            centres = new
-            break
-        centres = new
+    centres = _lloyd(colours, weights, np.ascontiguousarray(centres), int(n_iter))
     order = np.lexsort(tuple(centres.T[::-1]))
     return centres[order]
 
 
 @njit(cache=True)
-def _nearest_centre(pixels, centres, out):
-    n, c = pixels.shape
-    k = centres.shape[0]
-    for i in range(n):
-        best = 0
-        best_d = np.inf
-        for j in range(k):
-            d = 0.0
-            for ch in range(c):
-                t = pixels[i, ch] - centres[j, ch]
-                d += t * t
-            if d < best_d:
-                best_d = d
-                best = j
-        out[i] = best
+def _nearest_in_block(planes, centres, j, start, stop, best, out):
+    """Compare centre ``j`` with the pixels ``start .. stop - 1`` (one branch-free loop)."""
+    n_channels = planes.shape[0]
+    p0 = planes[0]
+    c0 = centres[j, 0]
+    if n_channels == 3:
+        p1, p2 = planes[1], planes[2]
+        c1, c2 = centres[j, 1], centres[j, 2]
+        q0, q1, q2, o = p0[start:stop], p1[start:stop], p2[start:stop], out[start:stop]
+        for i in range(stop - start):
+            t0 = q0[i] - c0
+            t1 = q1[i] - c1
+            t2 = q2[i] - c2
+            d = t0 * t0 + t1 * t1 + t2 * t2
+            b = best[i]
+            closer = d < b
+            best[i] = min(d, b)
+            o[i] = j if closer else o[i]
+        return
+    q0, o = p0[start:stop], out[start:stop]
+    for i in range(stop - start):
+        t = q0[i] - c0
+        d = t * t
+        for ch in range(1, n_channels):
+            t = planes[ch, start + i] - centres[j, ch]
+            d += t * t
+        b = best[i]
+        closer = d < b
+        best[i] = min(d, b)
+        o[i] = j if closer else o[i]
+
+
+@njit(cache=True)
+def _nearest_centre(planes, centres, out):
+    """Index of the nearest centre (the first among equal distances) of every pixel.
+
+    ``planes`` holds the channels as rows (C, n); ``out`` must start at 0. Pixels
+    are taken in blocks that stay in cache, each compared with one centre at a time.
+    """
+    n = planes.shape[1]
+    block = 2048
+    best = np.empty(block, dtype=np.float64)
+    for start in range(0, n, block):
+        stop = min(start + block, n)
+        best[:] = np.inf
+        for j in range(centres.shape[0]):
+            _nearest_in_block(planes, centres, j, start, stop, best, out)
 
 
 def assign_colour_words(features, centres) -> np.ndarray:
@@ -216,9 +320,9 @@ def assign_colour_words(features, centres) -> np.ndarray:
     array([[0, 1]])
     """
     features = np.asarray(features, dtype=np.float64)
-    pixels = np.ascontiguousarray(features.reshape(-1, features.shape[-1]))
-    out = np.empty(pixels.shape[0], dtype=np.int64)
-    _nearest_centre(pixels, np.ascontiguousarray(centres, dtype=np.float64), out)
+    planes = np.ascontiguousarray(features.reshape(-1, features.shape[-1]).T)
+    out = np.zeros(planes.shape[1], dtype=np.int64)
+    _nearest_centre(planes, np.ascontiguousarray(centres, dtype=np.float64), out)
     return out.reshape(features.shape[:-1])
 
 

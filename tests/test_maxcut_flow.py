@@ -95,3 +95,60 @@ def test_flow_takes_the_terminal_as_an_option():
 def _brute_force_any_terminal(graph):
     return max(cut_value(graph, np.array(s, dtype=np.int8))
                for s in itertools.product((-1, 1), repeat=graph.n_vertices))
+
+
+def _grid_graph(side, seed, levels):
+    """A side x side 4-connected pixel grid (inner edges <= 0) and a terminal tied to every
+    pixel; small integer weights make many equal paths and many minimum cuts."""
+    rng = np.random.default_rng(seed)
+    index = np.arange(side * side).reshape(side, side)
+    rows = list(index[:, :-1].ravel()) + list(index[:-1, :].ravel())
+    cols = list(index[:, 1:].ravel()) + list(index[1:, :].ravel())
+    weights = list(-rng.integers(0, levels, len(rows)).astype(float))
+    n = side * side
+    rows += [n] * n
+    cols += list(range(n))
+    weights += list(rng.integers(-levels, levels + 1, n).astype(float))
+    return graph_from_edges(n + 1, rows, cols, weights)
+
+
+@settings(max_examples=25, deadline=None)
+@given(side=st.integers(2, 14), seed=st.integers(0, 10_000), levels=st.integers(1, 4))
+def test_flow_on_grids_with_ties_matches_networkx(side, seed, levels):
+    graph = _grid_graph(side, seed, levels)
+    sides, value, bound = attractive_terminal_maxcut(graph)
+    assert value == pytest.approx(_networkx_min_cut_value(graph, side * side), abs=1e-6)
+    assert value <= bound <= value + 1e-6 * max(1.0, abs(value))
+
+
+def test_flow_sides_are_what_the_terminal_reaches_in_scipy_residual():
+    # reference: scipy's maximum_flow (Dinic) on the same integer network; the set the
+    # source reaches in the residual network is the same for every maximum flow (the
+    # smallest minimum cut; common knowledge), so the sides must match exactly
+    import scipy.sparse as sp
+    from scipy.sparse.csgraph import breadth_first_order, maximum_flow
+
+    graph = _grid_graph(40, 7, 3)
+    n = graph.n_vertices
+    t, sink = n - 1, n
+    rows, cols, w = graph.edges()
+    inner = cols != t
+    r = np.concatenate([rows[inner], cols[inner], np.full(n - 1, t), np.arange(n - 1)])
+    c = np.concatenate([cols[inner], rows[inner], np.arange(n - 1), np.full(n - 1, sink)])
+    a = np.zeros(n)
+    a[rows[~inner]] = w[~inner]
+    cap = np.concatenate([-w[inner], -w[inner], np.maximum(-a[:-1], 0), np.maximum(a[:-1], 0)])
+    keep = cap > 0
+    capacity = sp.csr_array((cap[keep].astype(np.int32), (r[keep], c[keep])), shape=(n + 1, n + 1))
+    flow = maximum_flow(capacity, t, sink, method="dinic")
+    residual = sp.csr_array(capacity - flow.flow)
+    residual.data[residual.data < 0] = 0
+    residual.eliminate_zeros()
+    reached = breadth_first_order(residual, t, directed=True, return_predecessors=False)
+    expected = -np.ones(n, dtype=np.int8)
+    expected[reached[reached < n]] = 1
+    sides, value, bound = attractive_terminal_maxcut(graph)
+    assert np.array_equal(sides, expected)
+    exact = float(np.sum(np.maximum(a, 0))) - flow.flow_value  # integer weights: exact
+    assert value == pytest.approx(exact, abs=1e-9)
+    assert exact <= bound <= exact + 1e-5 * abs(exact)

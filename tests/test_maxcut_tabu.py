@@ -202,3 +202,24 @@ def test_chunking_does_not_change_the_search(selection, monkeypatch):
     (a, info_a), (b, info_b) = runs
     assert np.array_equal(a, b)
     assert info_a["perturbations"] == info_b["perturbations"] > 0
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.tuples(st.sampled_from([-2.0, -0.5, -0.0, 0.0, 0.5, 1.0, 3.0, 1e-300]),
+                          st.integers(0, 3), st.booleans()), min_size=1, max_size=70))
+def test_scan_selection_is_the_best_gain_then_tie_then_first_index(entries):
+    # reference: brute force over the vertices (Python's max by key, first on equal keys)
+    from segcut.maxcut._kernels import _scan_best
+
+    gains = np.array([g for g, _, _ in entries], dtype=np.float64)
+    tie = np.array([t for _, t, _ in entries], dtype=np.uint64)
+    tabu = np.array([int(b) for _, _, b in entries], dtype=np.int8)
+
+    def best(kind):
+        members = [v for v in range(len(entries)) if tabu[v] == kind]
+        if not members:
+            return -1
+        top = max((gains[v], int(tie[v])) for v in members)
+        return next(v for v in members if (gains[v], int(tie[v])) == top)
+
+    assert _scan_best(gains, tie, tabu) == (best(0), best(1))

@@ -5,6 +5,7 @@ from __future__ import annotations
 from collections import Counter
 
 import numpy as np
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import ndimage as ndi
@@ -108,3 +109,19 @@ def test_words_and_histograms_against_brute_force():
     for region in range(labels.max() + 1):
         for word in range(4):
             assert hist[region, word] == np.count_nonzero((labels == region) & (words == word))
+
+
+@pytest.mark.parametrize("channels", [1, 2, 3])
+def test_colour_words_are_the_nearest_centre_first_on_ties(channels):
+    # reference: numpy's argmin over all squared distances (first minimum on ties);
+    # whole-number values keep every distance exact, a repeated centre makes ties
+    from segcut.regions import assign_colour_words
+
+    rng = np.random.default_rng(channels)
+    features = rng.integers(0, 40, (70, 90, channels)).astype(np.float64)
+    centres = rng.integers(0, 40, (9, channels)).astype(np.float64)
+    centres[6] = centres[2]
+    centres[7] = (centres[0] + centres[1]) / 2.0
+    d = ((features.reshape(-1, 1, channels) - centres[None]) ** 2).sum(-1)
+    expected = np.argmin(d, axis=1).reshape(70, 90)
+    assert np.array_equal(assign_colour_words(features, centres), expected)

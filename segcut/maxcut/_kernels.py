@@ -330,17 +330,78 @@ def _tabu_after_jump(flipped, count, tabu, tabu_until, heap_t, heap_v, t, tenure
     return hs
 
 
+_LOWEST_KEY = np.int64(-(2 ** 63))
+_MAGNITUDE_BITS = np.int64(2 ** 63 - 1)
+
+
+@njit(cache=True, inline="always")
+def _order_key(bits):
+    """Integer with the order of the float64 whose bits are ``bits`` (-0.0 equal to 0.0)."""
+    key = bits ^ ((bits >> 63) & _MAGNITUDE_BITS)
+    return 0 if key == -1 else key
+
+
+@njit(cache=True)
+def _top_keys(bits, tabu):
+    """Largest gain key among free and among tabu vertices (branch-free, vectorised)."""
+    top_free = _LOWEST_KEY
+    top_tabu = _LOWEST_KEY
+    for v in range(bits.shape[0]):
+        key = _order_key(bits[v])
+        free = tabu[v] == 0
+        top_free = max(top_free, key if free else _LOWEST_KEY)
+        top_tabu = max(top_tabu, _LOWEST_KEY if free else key)
+    return top_free, top_tabu
+
+
+@njit(cache=True)
+def _count_tops(bits, tabu, top_free, top_tabu):
+    """How many free and tabu vertices reach their top key, and the sum of their indices."""
+    n_free = 0
+    n_tabu = 0
+    sum_free = 0
+    sum_tabu = 0
+    for v in range(bits.shape[0]):
+        key = _order_key(bits[v])
+        free = tabu[v] == 0
+        hit_free = free & (key == top_free)
+        hit_tabu = (not free) & (key == top_tabu)
+        n_free += hit_free
+        n_tabu += hit_tabu
+        sum_free += v if hit_free else 0
+        sum_tabu += v if hit_tabu else 0
+    return n_free, sum_free, n_tabu, sum_tabu
+
+
+@njit(cache=True)
+def _largest_tie(bits, tie, tabu, top, free):
+    """Among the free (or tabu) vertices with key ``top``: the largest tie key, first index."""
+    best = -1
+    for v in range(bits.shape[0]):
+        if (tabu[v] == 0) == free and _order_key(bits[v]) == top:
+            if best < 0 or tie[v] > tie[best]:
+                best = v
+    return best
+
+
 @njit(cache=True)
 def _scan_best(gains, tie, tabu):
-    """Best free and best tabu vertex by a full scan (same keys as the trees)."""
-    a = -1
-    b = -1
-    for v in range(gains.shape[0]):
-        if tabu[v] == 0:
-            if a < 0 or gains[v] > gains[a] or (gains[v] == gains[a] and tie[v] > tie[a]):
-                a = v
-        elif b < 0 or gains[v] > gains[b] or (gains[v] == gains[b] and tie[v] > tie[b]):
-            b = v
+    """Best free and best tabu vertex (largest gain, then largest tie key, then lowest
+    index; -1 when there is none), the same keys as the trees.
+
+    Two branch-free passes over integer keys that order like the gains: the top key
+    of each kind, then how many vertices reach it (and, when one does, which); only
+    ties of equal gains take a third pass.
+    """
+    bits = gains.view(np.int64)
+    top_free, top_tabu = _top_keys(bits, tabu)
+    n_free, sum_free, n_tabu, sum_tabu = _count_tops(bits, tabu, top_free, top_tabu)
+    a = sum_free if n_free == 1 else -1
+    if n_free > 1:
+        a = _largest_tie(bits, tie, tabu, top_free, True)
+    b = sum_tabu if n_tabu == 1 else -1
+    if n_tabu > 1:
+        b = _largest_tie(bits, tie, tabu, top_tabu, False)
     return a, b
 
 
