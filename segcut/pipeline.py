@@ -124,6 +124,9 @@ class SplitResult:
         (:mod:`segcut.large`) the superpixel graph is that of the reduced copy
         (with its ``reduction_factor``) and ``"refine"`` sums the tiles' graphs
         (``n_vertices``, ``value``, ``upper_bound`` summed, ``tiles`` counted).
+        The full-resolution ``"refine"`` entry also names its ``pixel_model``
+        (``"colour_words"``, or ``"colour_words+two_gaussians"`` on a two-cluster
+        image) and the two-Gaussian ``separation`` (:mod:`segcut.pixel_models`).
     confidence : float64 ndarray, spatial shape of the image, or None
         How sure the split is at every pixel, in [0, 1] (1 = certain, 0.5 = either
         side costs the same; see :mod:`segcut.confidence`); None when
