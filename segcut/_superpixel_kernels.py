@@ -200,6 +200,17 @@ def _box_distance(centres, k, lo, hi, spatial_weight):
 
 
 @njit(cache=True)
+def _tile_grid(steps, shape):
+    """Tile side (one grid step, at least 1) and number of tiles along each axis."""
+    cell = np.empty(3, dtype=np.int64)
+    n_cells = np.empty(3, dtype=np.int64)
+    for a in range(3):
+        cell[a] = max(int(steps[a]), 1)
+        n_cells[a] = (shape[a] + cell[a] - 1) // cell[a]
+    return cell, n_cells
+
+
+@njit(cache=True)
 def slic_assign(pixels, start, centres, alive, steps, spatial_weight, shape, labels):
     """One assignment sweep: each pixel to its nearest centre among those in reach.
 
@@ -213,11 +224,7 @@ def slic_assign(pixels, start, centres, alive, steps, spatial_weight, shape, lab
     nearest). ``labels`` of pixels out of every window keep their value.
     Returns the number of (tile, centre) pairs.
     """
-    cell = np.empty(3, dtype=np.int64)
-    n_cells = np.empty(3, dtype=np.int64)
-    for a in range(3):
-        cell[a] = max(int(steps[a]), 1)
-        n_cells[a] = (shape[a] + cell[a] - 1) // cell[a]
+    cell, n_cells = _tile_grid(steps, shape)
     first, order = _bucket_centres(centres, alive, cell, n_cells)
     windows = np.empty((centres.shape[0], 6), dtype=np.int64)
     for k in range(centres.shape[0]):
@@ -289,11 +296,7 @@ def slic_iterate(planes, shape, centres, steps, spatial_weight, n_iterations, la
     """``n_iterations`` assignment and update sweeps (fewer when no centre reaches a pixel)."""
     alive = np.ones(centres.shape[0], dtype=np.bool_)
     counts = np.zeros(centres.shape[0], dtype=np.int64)
-    cell = np.empty(3, dtype=np.int64)
-    n_cells = np.empty(3, dtype=np.int64)
-    for a in range(3):
-        cell[a] = max(int(steps[a]), 1)
-        n_cells[a] = (shape[a] + cell[a] - 1) // cell[a]
+    cell, n_cells = _tile_grid(steps, shape)
     pixels, start = tile_order(planes, shape, cell, n_cells)
     for _ in range(n_iterations):
         if slic_assign(pixels, start, centres, alive, steps, spatial_weight, shape,
