@@ -45,7 +45,7 @@ from .orientation import CANONICAL_TRANSFORMS, _canonical_box, apply_transform, 
 from .prepare import image_features, prepare_image
 from .priors import SEED_BACKGROUND, SEED_FOREGROUND, box_map, get_prior, prior_map, \
     seeded_regions
-from .pixel_models import TWO_CLUSTER_SEPARATION, two_gaussian_log_likelihood
+from .pixel_models import TWO_CLUSTER_SEPARATION, fit_two_gaussians
 from .refine import pixel_log_likelihood, refine_with_llr
 from .regions import describe_regions, region_adjacency, word_histograms
 from .superpixels import oversegment
@@ -532,10 +532,10 @@ def _refine_stage(ig: ImageGraph, mask, config):
         refined, record = inside, None
     else:
         llr = pixel_log_likelihood(ctx.words, inside, ctx.n_words)
-        fit = two_gaussian_log_likelihood(ctx.features, inside)
+        fit = fit_two_gaussians(ctx.features, inside)
         two_cluster = fit.separation >= TWO_CLUSTER_SEPARATION
         if two_cluster:
-            llr = llr + fit.log_likelihood_ratio
+            llr = llr + fit.log_likelihood_ratio(ctx.features)
         result = refine_with_llr(ctx.features, inside, llr,
                                  band=_refine_band(config, ctx.labels, ig.n_regions),
                                  smoothness=config.refine_smoothness,

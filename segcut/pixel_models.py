@@ -8,7 +8,7 @@ log-likelihood ratio (foreground over background). Two models supply it:
 - **two Gaussians** (only on *two-cluster images*): a mixture of two Gaussians with
   one shared diagonal covariance, fitted to the pixel features by expectation
   maximisation started from the two sides of the superpixel mask
-  (:func:`two_gaussian_log_likelihood`). Unlike the word histograms, whose classes
+  (:func:`fit_two_gaussians`). Unlike the word histograms, whose classes
   stay the mask's sides, the mixture re-assigns every pixel to the class that
   explains it, so pixels the superpixels lumped with the wrong side (the dim
   cytoplasm next to a nucleus, a halo around a bright spot) move to the class of
@@ -33,7 +33,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["TWO_CLUSTER_SEPARATION", "TwoGaussianFit", "two_gaussian_log_likelihood"]
+__all__ = ["TWO_CLUSTER_SEPARATION", "TwoGaussianFit", "fit_two_gaussians"]
 
 #: Separation (Mahalanobis distance between the two class means) from which an
 #: image counts as two-cluster and the two-Gaussian model joins the colour words.
@@ -48,25 +48,36 @@ _VARIANCE_FLOOR = 1.0
 _LLR_LIMIT = 20.0
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class TwoGaussianFit:
-    """A two-Gaussian fit of pixel features (see :func:`two_gaussian_log_likelihood`).
+    """Two Gaussian classes with one shared diagonal covariance (:func:`fit_two_gaussians`).
 
     Attributes
     ----------
-    log_likelihood_ratio : float ndarray
-        Per pixel, log of (weight x density) of the foreground class over the
-        background class, clipped to +-20; the spatial shape of the mask.
+    weights : (2,) float ndarray
+        Mixture weights of the foreground (0) and background (1) classes.
+    means : (2, C) float ndarray
+    variance : (C,) float ndarray
+        The shared diagonal covariance.
     separation : float
-        Mahalanobis distance between the two class means under the shared
-        diagonal covariance.
-    foreground_weight : float
-        Mixture weight of the foreground class.
+        Mahalanobis distance between the two class means under that covariance.
     """
 
-    log_likelihood_ratio: np.ndarray
+    weights: np.ndarray
+    means: np.ndarray
+    variance: np.ndarray
     separation: float
-    foreground_weight: float
+
+    def log_likelihood_ratio(self, features) -> np.ndarray:
+        """Per pixel, log of (weight x density) of the foreground class over the background's.
+
+        With one shared covariance it is linear in the features; clipped to +-20.
+        Returns the spatial shape of ``features`` (all axes but the last).
+        """
+        features = np.asarray(features, dtype=np.float64)
+        a, b = _linear_ratio(self.weights, self.means, self.variance)
+        flat = features.reshape(-1, features.shape[-1])
+        return np.clip(flat @ a + b, -_LLR_LIMIT, _LLR_LIMIT).reshape(features.shape[:-1])
 
 
 def _linear_ratio(weights, means, variance):
@@ -77,7 +88,7 @@ def _linear_ratio(weights, means, variance):
     return a, b
 
 
-def two_gaussian_log_likelihood(features, mask) -> TwoGaussianFit:
+def fit_two_gaussians(features, mask) -> TwoGaussianFit:
     """Fit two Gaussians (shared diagonal covariance) to pixel features, started from ``mask``.
 
     Expectation maximisation on an even sample of the pixels; class 0 starts as
@@ -103,39 +114,40 @@ def two_gaussian_log_likelihood(features, mask) -> TwoGaussianFit:
 
     >>> image = np.full((20, 20), 10.0); image[5:15, 5:15] = 60.0
     >>> start = np.zeros((20, 20), bool); start[6:14, 6:14] = True
-    >>> fit = two_gaussian_log_likelihood(image[..., None], start)
-    >>> bool(((fit.log_likelihood_ratio > 0) == (image > 30)).all()), round(fit.separation)
+    >>> fit = fit_two_gaussians(image[..., None], start)
+    >>> llr = fit.log_likelihood_ratio(image[..., None])
+    >>> bool(((llr > 0) == (image > 30)).all()), round(fit.separation)
     (True, 50)
     """
     mask = np.asarray(mask, dtype=bool)
     flat = np.asarray(features, dtype=np.float64).reshape(mask.size, -1)
     stride = max(1, mask.size // _SAMPLE)
     sample = flat[::stride]
-    totals = (float(len(sample)), sample.sum(axis=0), (sample ** 2).sum(axis=0))
+    squares = sample ** 2
+    totals = (float(len(sample)), sample.sum(axis=0), squares.sum(axis=0))
     foreground = mask.ravel()[::stride].astype(np.float64)
     for _ in range(_ITERATIONS):
-        a, b = _linear_ratio(*_m_step(sample, foreground, totals))
+        a, b = _linear_ratio(*_m_step(sample, squares, foreground, totals))
         # with one shared variance the class log-odds are linear in the features
         foreground = 1.0 / (1.0 + np.exp(-np.clip(sample @ a + b, -50.0, 50.0)))
-    weights, means, variance = _m_step(sample, foreground, totals)
-    a, b = _linear_ratio(weights, means, variance)
-    llr = np.clip(flat @ a + b, -_LLR_LIMIT, _LLR_LIMIT).reshape(mask.shape)
+    weights, means, variance = _m_step(sample, squares, foreground, totals)
     separation = float(np.sqrt((((means[0] - means[1]) ** 2) / variance).sum()))
-    return TwoGaussianFit(log_likelihood_ratio=llr, separation=separation,
-                          foreground_weight=float(weights[0]))
+    return TwoGaussianFit(weights=weights, means=means, variance=variance,
+                          separation=separation)
 
 
-def _m_step(sample, foreground, totals):
+def _m_step(sample, squares, foreground, totals):
     """Weights, means and the shared (weight-averaged) diagonal variance.
 
-    ``totals`` are the count, sum and sum of squares of the whole sample; the
-    background's moments are the totals minus the foreground's.
+    ``squares`` is ``sample ** 2``; ``totals`` are the count, sum and sum of squares
+    of the whole sample; the background's moments are the totals minus the
+    foreground's.
     """
-    n, sums, squares = totals
-    fg = (float(foreground.sum()), foreground @ sample, foreground @ (sample ** 2))
+    n, total_sum, total_squares = totals
+    fg = (float(foreground.sum()), foreground @ sample, foreground @ squares)
     counts = np.array([fg[0], n - fg[0]]) + 1e-9
-    firsts = np.stack([fg[1], sums - fg[1]])
-    seconds = np.stack([fg[2], squares - fg[2]])
+    firsts = np.stack([fg[1], total_sum - fg[1]])
+    seconds = np.stack([fg[2], total_squares - fg[2]])
     weights = counts / counts.sum()
     means = firsts / counts[:, None]
     own = np.maximum(seconds / counts[:, None] - means ** 2, 0.0)

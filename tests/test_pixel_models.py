@@ -14,7 +14,7 @@ from hypothesis import strategies as st
 from skimage.filters import threshold_otsu
 
 from segcut import split
-from segcut.pixel_models import TWO_CLUSTER_SEPARATION, two_gaussian_log_likelihood
+from segcut.pixel_models import TWO_CLUSTER_SEPARATION, fit_two_gaussians
 
 
 def _two_level(shape=(120, 120), low=20.0, high=60.0, sigma=4.0, seed=0):
@@ -32,13 +32,14 @@ def test_decision_boundary_is_the_midpoint_and_separation_the_textbook_one():
     # the dark field lumped with it; the fit must move to the two levels
     start = np.roll(truth, 3, axis=0) & np.roll(truth, -3, axis=0)
     start[:16, :16] = True
-    fit = two_gaussian_log_likelihood(image[..., None], start)
+    fit = fit_two_gaussians(image[..., None], start)
+    ratio = fit.log_likelihood_ratio(image[..., None])
     # equal weights and one shared variance: llr = 0 at the midpoint of the means
     # (common knowledge); the half-and-half scene has weights near 1/2
-    assert fit.foreground_weight == pytest.approx(truth.mean(), abs=0.02)
+    assert fit.weights[0] == pytest.approx(truth.mean(), abs=0.02)
     # with one shared variance the ratio is linear in the value: the zero between the
     # two pixels that bracket it is exact
-    values, llr = image.ravel(), fit.log_likelihood_ratio.ravel()
+    values, llr = image.ravel(), ratio.ravel()
     order = np.argsort(values)
     i = int(np.searchsorted(llr[order], 0.0))
     (v0, v1), (l0, l1) = values[order][i - 1:i + 1], llr[order][i - 1:i + 1]
@@ -48,18 +49,18 @@ def test_decision_boundary_is_the_midpoint_and_separation_the_textbook_one():
     assert fit.separation == pytest.approx(40.0 / np.sqrt(16.0 + 1.0), rel=0.05)
     # and the classes agree with Otsu's threshold (Otsu 1979) on all but a few pixels
     otsu = image > threshold_otsu(image)
-    assert np.mean((fit.log_likelihood_ratio > 0) != otsu) < 0.002
+    assert np.mean((ratio > 0) != otsu) < 0.002
 
 
 def test_two_cluster_scene_reaches_the_threshold_and_uniform_noise_does_not():
     image, truth = _two_level()
-    assert two_gaussian_log_likelihood(image[..., None], truth).separation \
+    assert fit_two_gaussians(image[..., None], truth).separation \
         >= TWO_CLUSTER_SEPARATION
     rng = np.random.default_rng(1)
     flat = rng.uniform(0.0, 100.0, (120, 120, 3))
     half = np.zeros((120, 120), bool)
     half[:, :60] = True
-    assert two_gaussian_log_likelihood(flat, half).separation < TWO_CLUSTER_SEPARATION
+    assert fit_two_gaussians(flat, half).separation < TWO_CLUSTER_SEPARATION
 
 
 @settings(max_examples=10, deadline=None)
@@ -70,10 +71,10 @@ def test_swapping_the_start_sides_negates_the_ratio(seed):
     features[6:18, 6:18] += 30.0
     start = rng.random((24, 24)) < 0.5
     start[6:18, 6:18] |= rng.random((12, 12)) < 0.6
-    one = two_gaussian_log_likelihood(features, start)
-    other = two_gaussian_log_likelihood(features, ~start)
-    np.testing.assert_allclose(one.log_likelihood_ratio, -other.log_likelihood_ratio,
-                               atol=1e-8)
+    one = fit_two_gaussians(features, start)
+    other = fit_two_gaussians(features, ~start)
+    np.testing.assert_allclose(one.log_likelihood_ratio(features),
+                               -other.log_likelihood_ratio(features), atol=1e-8)
     assert one.separation == pytest.approx(other.separation, rel=1e-9)
 
 
