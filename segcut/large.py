@@ -20,8 +20,10 @@ dominates the time, so here:
 4. the pixel refinement (:func:`segcut.refine.refine_with_llr`) runs at full
    resolution in tiles of :data:`TILE` x :data:`TILE` pixels, only on tiles near the
    boundary or holding pixels whose colour word contradicts their side (judged on
-   the reduced copy); each tile's features are computed for the tile and a margin,
-   and each tile's graph is solved with every pixel outside the tile fixed (tiles in
+   the reduced copy); on a two-cluster image the two-Gaussian pixel model
+   (:mod:`segcut.pixel_models`), fitted on the reduced copy, joins the colour
+   words as in the full-resolution path; each tile's features are computed for
+   the tile and a margin, and each tile's graph is solved with every pixel outside the tile fixed (tiles in
    row order, each seeing the sides its predecessors chose).
 
 The full-resolution ``labels`` come back as int32 and ``confidence`` as float32 (on
@@ -53,6 +55,7 @@ from .orientation import _canonical_box, _lexicographic_less, \
     _symmetric_edges, _KEY_BLOCKS, _KEY_LEVELS, apply_transform, pick_canonical
 from .prepare import NORMALISE_PERCENTILES, _channels_last, image_features
 from .priors import SEED_BACKGROUND, SEED_FOREGROUND
+from .pixel_models import TWO_CLUSTER_SEPARATION, fit_two_gaussians
 from .refine import DISAGREEMENT, refine_with_llr
 from .regions import assign_colour_words
 
@@ -404,10 +407,19 @@ def split_large(image, config, *, seeds=None, channel_axis=-1, generator=None, s
 class _ReducedSplit:
     """The superpixel split of the reduced canonical copy."""
 
-    def __init__(self, ig, regions, sides, mask, factor, shape, method, value, bound):
+    def __init__(self, ig, regions, sides, mask, factor, shape, method, value, bound,
+                 pixel_fit=None, fit_llr=None):
         self.ig, self.regions, self.sides, self.mask = ig, regions, sides, mask
         self.factor, self.shape, self.method = factor, shape, method
         self.value_before, self.bound = value, bound
+        # the two-Gaussian pixel model (segcut.pixel_models), fitted on the reduced copy;
+        # fit_llr: its log-odds on the reduced copy (float32), only on two-cluster images
+        self.pixel_fit, self.fit_llr = pixel_fit, fit_llr
+
+    @property
+    def two_cluster(self):
+        return self.pixel_fit is not None and \
+            self.pixel_fit.separation >= TWO_CLUSTER_SEPARATION
 
     @classmethod
     def solve(cls, view, config, seeds, lo, hi, generator, seconds, transform="identity"):
@@ -433,7 +445,12 @@ class _ReducedSplit:
         if ig.terminal is None and border_rule(ig.region_foreground(sides),
                                                frame_pixels(ig.labels)):
             mask = ~mask
-        return cls(ig, regions, sides, mask, f, shape, method, value, bound)
+        fit = fit_llr = None
+        if config.refine and mask.any() and not mask.all():
+            fit = fit_two_gaussians(prepared.features, mask)
+            if fit.separation >= TWO_CLUSTER_SEPARATION:
+                fit_llr = fit.log_likelihood_ratio(prepared.features).astype(np.float32)
+        return cls(ig, regions, sides, mask, f, shape, method, value, bound, fit, fit_llr)
 
     def word_llr(self):
         """Log-likelihood ratio of each colour word, from the reduced mask (pixel counts)."""
@@ -462,6 +479,8 @@ class _ReducedSplit:
             boundary[tuple(hi)] |= differs
         near = ndi.binary_dilation(boundary, iterations=band // f + 2)
         pixel_llr = llr[self.regions.words]
+        if self.fit_llr is not None:
+            pixel_llr = pixel_llr + self.fit_llr
         near |= ndi.binary_dilation(np.where(mask, pixel_llr < -DISAGREEMENT,
                                              pixel_llr > DISAGREEMENT), iterations=2)
         rows, cols = self.shape
@@ -513,6 +532,8 @@ def _refine_tiles(view, reduced, config, seeds, lo, hi):
         v0, v1 = max(0, c0 - margin), min(cols, c1 + margin)
         features = image_features(_normalised(view[w0:w1, v0:v1], lo, hi))
         llr = llr_table[assign_colour_words(features, centres)]
+        if reduced.two_cluster:
+            llr = llr + reduced.pixel_fit.log_likelihood_ratio(features)
         free = np.zeros((w1 - w0, v1 - v0), dtype=bool)
         core = (slice(r0 - w0, r1 - w0), slice(c0 - v0, c1 - v0))
         free[core] = _forced(seeds, config.box, r0, r1, c0, c1) == 0
@@ -531,6 +552,9 @@ def _refine_tiles(view, reduced, config, seeds, lo, hi):
     if record["tiles"] == 0:
         return mask, None, changed
     record["gap"] = relative_gap(record["value"], record["upper_bound"])
+    record["pixel_model"] = "colour_words+two_gaussians" if reduced.two_cluster \
+        else "colour_words"
+    record["separation"] = round(reduced.pixel_fit.separation, 6)
     return mask, record, changed
 
 

@@ -124,7 +124,7 @@ class SplitResult:
         (:mod:`segcut.large`) the superpixel graph is that of the reduced copy
         (with its ``reduction_factor``) and ``"refine"`` sums the tiles' graphs
         (``n_vertices``, ``value``, ``upper_bound`` summed, ``tiles`` counted).
-        The full-resolution ``"refine"`` entry also names its ``pixel_model``
+        The ``"refine"`` entry also names its ``pixel_model``
         (``"colour_words"``, or ``"colour_words+two_gaussians"`` on a two-cluster
         image) and the two-Gaussian ``separation`` (:mod:`segcut.pixel_models`).
     confidence : float64 ndarray, spatial shape of the image, or None
