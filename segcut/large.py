@@ -31,8 +31,10 @@ the full-resolution path they stay int64 / float64): at 100 Mpixel that is 0.4 G
 each instead of 0.8 GB.
 
 Everything after step 1 happens in the canonical orientation, so results stay
-exactly equivariant under flips and quarter turns. 3-D stacks, float images with
-non-finite values and images without contrast take the full-resolution path.
+exactly equivariant under flips and quarter turns. A float image with non-finite
+values gets them replaced by the channel mean in one copy (as on the
+full-resolution path, with the same warning). 3-D stacks and images without
+contrast take the full-resolution path.
 
 The record's ``graphs`` has the superpixel graph of the reduced copy and one entry
 ``"refine"`` for all tiles: ``n_vertices``, ``value`` and ``upper_bound`` are sums over
@@ -53,7 +55,7 @@ from scipy import ndimage as ndi
 from .maxcut import relative_gap
 from .orientation import _canonical_box, _lexicographic_less, \
     _symmetric_edges, _KEY_BLOCKS, _KEY_LEVELS, apply_transform, pick_canonical
-from .prepare import NORMALISE_PERCENTILES, _channels_last, image_features
+from .prepare import NORMALISE_PERCENTILES, _channels_last, _fill_non_finite, image_features
 from .priors import SEED_BACKGROUND, SEED_FOREGROUND
 from .pixel_models import TWO_CLUSTER_SEPARATION, fit_two_gaussians
 from .refine import DISAGREEMENT, refine_with_llr
@@ -83,8 +85,6 @@ def uses_large_path(image, config, channel_axis) -> bool:
         return False
     arr = _channels_last(image, channel_axis)
     if arr.ndim != 3 or arr.shape[0] * arr.shape[1] <= limit:
-        return False
-    if np.issubdtype(arr.dtype, np.floating) and not np.isfinite(arr).all():
         return False
     return True
 
@@ -383,6 +383,11 @@ def split_large(image, config, *, seeds=None, channel_axis=-1, generator=None, s
     seconds = {}
     t0 = time.perf_counter()
     arr = _values(_channels_last(image, channel_axis))
+    fill_warnings = []
+    if np.issubdtype(arr.dtype, np.floating) and not np.isfinite(arr).all():
+        # one copy of the image with its non-finite values replaced, as the
+        # full-resolution path does (never a float64 copy of a float32 image)
+        arr = _fill_non_finite(arr, fill_warnings)
     spatial = arr.shape[:2]
     seeds = _normalise_seeds(seeds, spatial)
     lo, hi, has_contrast = _robust_range(arr)
@@ -401,7 +406,9 @@ def split_large(image, config, *, seeds=None, channel_axis=-1, generator=None, s
     mask, refine_record, changed = _refine_tiles(view, reduced, config, seeds, lo, hi)
     mask = np.ascontiguousarray(apply_transform(mask, transform, inverse=True))
     seconds["refine"] = time.perf_counter() - t0
-    return _finish(mask, reduced, config, transform, seed, seconds, refine_record, changed)
+    result = _finish(mask, reduced, config, transform, seed, seconds, refine_record, changed)
+    return replace(result, warnings=fill_warnings + list(result.warnings)) if fill_warnings \
+        else result
 
 
 class _ReducedSplit:

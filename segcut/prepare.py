@@ -80,7 +80,8 @@ def _fill_non_finite(x, warnings):
     for c in range(x.shape[-1]):
         channel, ok = x[..., c], finite[..., c]
         # summed in sorted order: the same fill for any order of the pixels
-        fill = float(np.sum(np.sort(channel[ok]))) / max(int(np.count_nonzero(ok)), 1)
+        total = float(np.sum(np.sort(channel[ok]), dtype=np.float64))
+        fill = total / max(int(np.count_nonzero(ok)), 1)
         channel[~ok] = fill
     warnings.append(f"{n_bad} non-finite value(s) replaced by the channel mean")
     return x

@@ -265,3 +265,25 @@ def test_large_path_uses_the_two_gaussian_model_on_a_two_cluster_image():
         assert refine["pixel_model"] == "colour_words+two_gaussians"
     assert _iou(large.mask, truth) >= _iou(full.mask, truth) - 0.01
     assert _iou(full.mask, truth) >= 0.85
+
+
+def test_float_image_with_non_finite_values_takes_the_large_path():
+    """NaN and infinite values in an in-memory float image: the large path replaces them
+    by the channel mean in one copy (with the full path's warning) instead of handing the
+    image to the full-resolution path; the caller's array is left as it was."""
+    rng = np.random.default_rng(2)
+    image = np.full((300, 320), 0.2, dtype=np.float32) + rng.normal(0, 0.02, (300, 320)).astype(
+        np.float32)
+    truth = np.zeros((300, 320), bool)
+    truth[80:220, 90:250] = True
+    image[truth] += 0.6
+    image[10:14, 10:40] = np.nan
+    image[290, 300:310] = np.inf
+    before = image.copy()
+    config = SplitConfig(max_graph_pixels=20_000)
+    assert large.uses_large_path(image, config, None)
+    result = split(image, config, rng=0)
+    assert "reduction_factor" in result.graphs[0]
+    assert any("non-finite value(s) replaced by the channel mean" in w for w in result.warnings)
+    assert _iou(result.mask, truth) >= 0.97
+    np.testing.assert_array_equal(image, before)
