@@ -431,7 +431,8 @@ def _graph_stages(prepared, seconds, rng, progress=None):
         weights=pair_w, prior_evidence=priors.evidence,
         word_counts=word_histograms(labels, regions.words, regions.n_regions,
                                     regions.centres.shape[0]),
-        model_strength=config.model_strength, use_models=config.colour_model,
+        model_strength=config.prior_model_strength if informed else config.model_strength,
+        use_models=config.colour_model,
         with_terminal=informed or config.colour_model, oriented=informed, frame=regions.frame)
     generator = np.random.default_rng(rng)
     progress("appearance")
