@@ -151,3 +151,23 @@ def signed_graph_with_m_edges(n, m, seed, weights):
     w = {"pm": lambda: rng.choice([-1.0, 1.0], size=m), "normal": lambda: rng.normal(size=m),
          "whole": lambda: rng.integers(-10, 11, size=m).astype(float)}[weights]()
     return graph_from_edges(n, a[chosen], b[chosen], w)
+
+
+def spots_with_halo(size, n_spots, radius, halo_radius, seed):
+    """Bright round spots, each in a dim halo, on a dark field with Gaussian noise.
+
+    A two-cluster scene of the kind fluorescence gives (test data only): returns the
+    float image in [0, 1] (spots 0.9, halos 0.18, field 0.1, noise sigma 0.02) and the
+    spots' true mask.
+    """
+    rng = np.random.default_rng(seed)
+    yy, xx = np.mgrid[:size, :size]
+    truth = np.zeros((size, size), bool)
+    halo = np.zeros((size, size), bool)
+    margin = max(12, size // 25)
+    for r, c in rng.integers(margin, size - margin, (n_spots, 2)):
+        d2 = (yy - r) ** 2 + (xx - c) ** 2
+        truth |= d2 <= radius ** 2
+        halo |= d2 <= halo_radius ** 2
+    image = np.where(truth, 0.9, np.where(halo, 0.18, 0.1)) + rng.normal(0, 0.02, truth.shape)
+    return image.clip(0.0, 1.0), truth

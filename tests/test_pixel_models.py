@@ -13,6 +13,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from skimage.filters import threshold_otsu
 
+from checks import spots_with_halo
 from segcut import split
 from segcut.pixel_models import TWO_CLUSTER_SEPARATION, fit_two_gaussians
 
@@ -80,15 +81,7 @@ def test_swapping_the_start_sides_negates_the_ratio(seed):
 
 def test_halo_lumped_by_superpixels_is_removed_on_a_two_cluster_image():
     """Bright small spots with a dim halo on a dark field: the mask keeps the spots only."""
-    rng = np.random.default_rng(3)
-    yy, xx = np.mgrid[:192, :192]
-    truth = np.zeros((192, 192), bool)
-    halo = np.zeros((192, 192), bool)
-    for r, c in rng.integers(12, 180, (14, 2)):
-        d2 = (yy - r) ** 2 + (xx - c) ** 2
-        truth |= d2 <= 16
-        halo |= d2 <= 64
-    image = np.where(truth, 0.9, np.where(halo, 0.18, 0.1)) + rng.normal(0, 0.02, truth.shape)
+    image, truth = spots_with_halo(192, 14, 4, 8, seed=3)
     result = split(image)
     refine = [g for g in result.graphs if g["name"] == "refine"][0]
     assert refine["pixel_model"] == "colour_words+two_gaussians"
