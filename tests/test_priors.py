@@ -119,3 +119,21 @@ def test_a_prior_that_is_not_symmetric_lands_where_its_author_put_it(max_graph_p
     finally:
         priors_module._PRIORS.pop("left_right", None)
     assert len(transforms) > 1  # the check ran through orientations other than identity
+
+
+def test_prior_model_strength_weighs_the_colour_models_only_when_a_prior_orients_the_graph():
+    """``prior_model_strength`` scales the colour-model edges of a graph with a prior; a
+    split with no prior does not use it (same mask, value and bound)."""
+    from segcut import SplitConfig, split
+
+    rng = np.random.default_rng(7)
+    image = rng.random((64, 64, 3)) * 0.3
+    image[16:48, 20:52] += 0.5
+    plain = [split(image, SplitConfig(prior_model_strength=s), rng=0) for s in (0.1, 2.0)]
+    assert np.array_equal(plain[0].mask, plain[1].mask)
+    assert plain[0].value == plain[1].value and plain[0].upper_bound == plain[1].upper_bound
+    with_prior = [split(image, SplitConfig(prior=("border",), prior_model_strength=s), rng=0)
+                  for s in (0.1, 2.0)]
+    assert with_prior[0].upper_bound != pytest.approx(with_prior[1].upper_bound, rel=1e-3)
+    with pytest.raises(ValueError, match="prior_model_strength"):
+        SplitConfig(prior_model_strength=-1.0)
