@@ -63,7 +63,10 @@ OUTPUT_COLUMNS = (
     Column("upper_bound", "upper bound", "num", ".6g", "upper_bound",
            meaning="certified upper bound: no split of that graph cuts more"),
     Column("gap", "gap", "num", "percent", "gap",
-           meaning="(upper_bound - cut_value) / |upper_bound|"),
+           meaning="(upper_bound - cut_value) / |upper_bound|, of the final mask"),
+    Column("solver_gap", "solver gap", "num", "percent", "solver_gap", optional=True,
+           meaning="the same for the solver's own split, before the pixel refinement moved "
+                   "the mask"),
     Column("n_superpixels", "superpixels", "num", ".0f", "n_superpixels",
            meaning="number of superpixels (graph vertices without the terminal)"),
     Column("hypothesis", "hypothesis", "text", "", "hypothesis", optional=True,

@@ -165,6 +165,19 @@ class SplitResult:
             return None
         return uncertain_fraction(self.confidence, self.uncertain_level)
 
+    @property
+    def solver_gap(self) -> float | None:
+        """Certified gap of the max-cut solver's own split of the superpixel graph.
+
+        ``gap`` is that of the final mask, after the pixel refinement and the clean-up
+        moved it (on purpose) away from the superpixel optimum; this is the gap of
+        the split the solver returned (``cleanup["value_before"]``), which says how
+        well the search did. None without a bound.
+        """
+        if self.upper_bound is None:
+            return None
+        return relative_gap(float(self.cleanup.get("value_before", self.value)), self.upper_bound)
+
     def to_record(self) -> dict:
         """The JSON-serialisable statistics of this split (no arrays).
 
@@ -178,6 +191,7 @@ class SplitResult:
             "value": float(self.value),
             "upper_bound": None if self.upper_bound is None else float(self.upper_bound),
             "gap": None if self.gap is None else float(self.gap),
+            "solver_gap": None if self.solver_gap is None else float(self.solver_gap),
             "foreground_fraction": float(self.foreground_fraction),
             "n_superpixels": int(self.n_superpixels),
             "orientation": self.orientation,

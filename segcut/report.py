@@ -64,7 +64,8 @@ FLAG_MEANINGS = {
                  "the run's uncertain_level): another split costs the graph almost nothing "
                  "there; the most uncertain splits are the likeliest to be wrong, so review "
                  "them first",
-    "large gap": "the certified gap is above {max_gap:.0%}: a better cut of this graph may exist",
+    "large gap": "the certified gap of the solver's split is above {max_gap:.0%}: a better cut "
+                 "of this graph may exist",
     "no bound": "the method gave no certified upper bound",
     "warnings": "reading or splitting the input left notes (see the last column)",
 }
@@ -97,7 +98,8 @@ def flag_row(row: dict, *, min_foreground: float = FLAG_RULES["min_foreground"],
         A foreground fraction below ``min_foreground`` is flagged ``"tiny foreground"``,
         above ``max_foreground`` ``"huge foreground"``.
     max_gap : float
-        A certified relative gap above this is flagged ``"large gap"``.
+        A certified relative gap of the solver's split (``solver_gap``; ``gap`` in
+        records that lack it) above this is flagged ``"large gap"``.
     max_frame : float
         A share of foreground among the frame's pixels above this is flagged
         ``"hugs the frame"``.
@@ -133,7 +135,8 @@ def flag_row(row: dict, *, min_foreground: float = FLAG_RULES["min_foreground"],
         "hypotheses disagree": _above(row, "hypothesis_disagreement", max_disagreement),
         "refinement changed much": _above(row, "refine_changed_fraction", max_refine_change),
         "uncertain": _above(row, "uncertain_fraction", max_uncertain),
-        "large gap": _above(row, "gap", max_gap),
+        "large gap": _above(row, "solver_gap" if row.get("solver_gap") is not None else "gap",
+                            max_gap),
         "no bound": row.get("gap") is None,
         "warnings": bool(row.get("warnings")),
     }

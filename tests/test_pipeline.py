@@ -317,3 +317,20 @@ def test_progress_names_each_stage_once_in_order_and_changes_nothing():
     heard.clear()
     split(np.full((20, 20), 0.4), progress=heard.append)  # no contrast: nothing past prepare
     assert heard == ["prepare"]
+
+
+def test_solver_gap_is_the_gap_of_the_solvers_own_split():
+    """``solver_gap`` is the certified gap of the split the solver returned (before the
+    pixel refinement), ``gap`` that of the final mask; both certified by one bound."""
+    from segcut.maxcut import relative_gap
+
+    rng = np.random.default_rng(11)
+    image = rng.random((80, 80)) * 0.3
+    image[20:60, 24:64] += 0.5
+    result = split(image, rng=0)
+    record = result.to_record()
+    assert record["solver_gap"] == pytest.approx(
+        relative_gap(record["cleanup"]["value_before"], record["upper_bound"]))
+    assert record["gap"] == pytest.approx(relative_gap(record["value"], record["upper_bound"]))
+    unrefined = split(image, SplitConfig(refine=False, min_region_size=0, fill_holes=False), rng=0)
+    assert unrefined.solver_gap == pytest.approx(unrefined.gap)
