@@ -1,13 +1,14 @@
 """numba kernel of the confidence stage: forced flips and their cascades.
 
-Only numpy, numba and the 1-flip update of the max-cut kernels are imported here. The kernel takes raw CSR arrays, an int8
-``sides`` array of +-1 and scalars; :mod:`segcut.confidence` checks and allocates.
+Only numpy, numba and the 1-flip update and work queue of the max-cut kernels are
+imported here. The kernel takes raw CSR arrays, an int8 ``sides`` array of +-1 and
+scalars; :mod:`segcut.confidence` checks and allocates.
 """
 
 import numpy as np
 from numba import njit
 
-from .maxcut._kernels import flip_vertex as _flip
+from .maxcut._kernels import flip_vertex as _flip, queue_neighbours
 
 
 @njit(cache=True)
@@ -26,12 +27,7 @@ def _cascade(indptr, indices, weights, sides, gains, locked, queue, queued, move
     n_moved = 1
     head = 0
     tail = 0
-    for k in range(indptr[i], indptr[i + 1]):
-        j = indices[k]
-        if not queued[j] and not locked[j]:
-            queued[j] = True
-            queue[tail % n] = j
-            tail += 1
+    tail = queue_neighbours(indptr, indices, i, queue, queued, tail, gains, -np.inf, locked)
     while head < tail and n_moved < max_moves:
         v = queue[head % n]
         head += 1
@@ -46,12 +42,7 @@ def _cascade(indptr, indices, weights, sides, gains, locked, queue, queued, move
         _flip(indptr, indices, weights, sides, gains, v)
         moved[n_moved] = v
         n_moved += 1
-        for k in range(indptr[v], indptr[v + 1]):
-            j = indices[k]
-            if not queued[j] and not locked[j]:
-                queued[j] = True
-                queue[tail % n] = j
-                tail += 1
+        tail = queue_neighbours(indptr, indices, v, queue, queued, tail, gains, -np.inf, locked)
     while head < tail:  # budget spent: empty the queue
         queued[queue[head % n]] = False
         head += 1

@@ -37,6 +37,24 @@ def flip_vertex(indptr, indices, weights, sides, gains, i):
 
 
 @njit(cache=True)
+def queue_neighbours(indptr, indices, v, queue, queued, tail, gains, threshold, blocked):
+    """Append to the ring ``queue`` every neighbour of ``v`` worth examining again.
+
+    A neighbour ``j`` is appended at position ``tail`` (modulo the queue's length)
+    when it is not queued yet, not ``blocked[j]`` and ``gains[j] > threshold``; it
+    is then marked in ``queued``. Neighbours go in CSR order. Returns the new tail.
+    """
+    n = queue.shape[0]
+    for k in range(indptr[v], indptr[v + 1]):
+        j = indices[k]
+        if not queued[j] and not blocked[j] and gains[j] > threshold:
+            queue[tail % n] = j
+            queued[j] = True
+            tail += 1
+    return tail
+
+
+@njit(cache=True)
 def descend_1flip(indptr, indices, weights, sides, gains, order, tol, max_moves):
     """First-improvement 1-flip descent driven by a work queue.
 
@@ -51,6 +69,7 @@ def descend_1flip(indptr, indices, weights, sides, gains, order, tol, max_moves)
     n = sides.shape[0]
     queue = np.empty(n, dtype=np.int64)
     queued = np.zeros(n, dtype=np.bool_)
+    blocked = np.zeros(n, dtype=np.bool_)
     head = 0
     size = 0
     for t in range(n):
@@ -67,12 +86,8 @@ def descend_1flip(indptr, indices, weights, sides, gains, order, tol, max_moves)
         if gains[i] > tol:
             flip_vertex(indptr, indices, weights, sides, gains, i)
             moves += 1
-            for k in range(indptr[i], indptr[i + 1]):
-                j = indices[k]
-                if not queued[j] and gains[j] > tol:
-                    queue[(head + size) % n] = j
-                    queued[j] = True
-                    size += 1
+            size = queue_neighbours(indptr, indices, i, queue, queued, head + size, gains, tol,
+                                    blocked) - head
     return moves
 
 
@@ -422,8 +437,8 @@ def tabu_search(indptr, indices, weights, sides, gains, tie, tabu, tabu_until, w
 
     With ``use_scan`` False, selection uses two tournament trees (free and tabu
     vertices), so a move costs O(deg log n), not O(n); with ``use_scan`` True it scans
-    all vertices, which is faster on small dense graphs. Stops early when the best reaches ``target``. The best
-    sides are in ``best_sides`` on return. Returns the number of moves made.
+    all vertices, which is faster on small dense graphs. Stops early when the best
+    reaches ``target``. The best sides are in ``best_sides`` on return. Returns the number of moves made.
     """
     n = sides.shape[0]
     done = 0
@@ -1016,6 +1031,7 @@ def kick_and_descend(indptr, indices, weights, sides, gains, n_kicks, strength, 
     queue = np.empty(n, dtype=np.int64)
     queued = np.zeros(n, dtype=np.bool_)
     log = np.empty(strength + n, dtype=np.int64)
+    blocked = np.zeros(n, dtype=np.bool_)
     kept = 0
     for _ in range(n_kicks):
         n_log = 0
@@ -1028,12 +1044,8 @@ def kick_and_descend(indptr, indices, weights, sides, gains, n_kicks, strength, 
             flip_vertex(indptr, indices, weights, sides, gains, v)
             log[n_log] = v
             n_log += 1
-            for k in range(indptr[v], indptr[v + 1]):
-                j = indices[k]
-                if not queued[j]:
-                    queue[(head + size) % n] = j
-                    queued[j] = True
-                    size += 1
+            size = queue_neighbours(indptr, indices, v, queue, queued, head + size, gains,
+                                    -np.inf, blocked) - head
         moves = 0
         while size > 0:
             i = queue[head]
@@ -1046,12 +1058,8 @@ def kick_and_descend(indptr, indices, weights, sides, gains, n_kicks, strength, 
                 log[n_log] = i
                 n_log += 1
                 moves += 1
-                for k in range(indptr[i], indptr[i + 1]):
-                    j = indices[k]
-                    if not queued[j] and gains[j] > tol:
-                        queue[(head + size) % n] = j
-                        queued[j] = True
-                        size += 1
+                size = queue_neighbours(indptr, indices, i, queue, queued, head + size, gains,
+                                        tol, blocked) - head
         if delta > tol:
             kept += 1
         else:
