@@ -163,6 +163,11 @@ CONFIG_OPTIONS = (
                  "a box known to hold the foreground, in pixels (x is the column, 0,0 the top "
                  "left corner; a box reaching outside an image is clipped, and split notes it "
                  "in that image's record)"),
+    ConfigOption(("--background-radius",), "background_radius", non_negative_int, "R",
+                 "flatten an uneven background first: subtract its grey-level opening (bright "
+                 "objects) or closing (dark objects) with a square of half-width R pixels, "
+                 "larger than the objects; 0 never flattens (default: decided per image, "
+                 "flattening only when it makes the image two clearly separated classes)"),
     ConfigOption(("--superpixels",), "n_superpixels", superpixel_count, "N",
                  f"number of superpixels, {MIN_SUPERPIXELS} to {MAX_SUPERPIXELS} (default: "
                  "chosen from the image size)"),

@@ -47,6 +47,9 @@ CHOICE_RULES = {
         "Jensen-Shannon divergence of its two colour models is kept: an object keeps off the "
         "frame, a true boundary follows strong edges, and the two sides look different; ties "
         "go to the earlier hypothesis"),
+    "flattened_background": (
+        "the background was flattened (segcut.background): the lightness threshold of the "
+        "flattened image, the split the flattening was judged by, is the only start"),
 }
 
 

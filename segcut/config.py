@@ -1,7 +1,7 @@
 """The settings of one image split: a frozen dataclass, TOML in and out, a stable hash.
 
 :class:`SplitConfig` holds every option of :func:`segcut.pipeline.split`. It is
-written as TOML with one table per stage (``[superpixels]``, ``[affinity]``,
+written as TOML with one table per stage (``[background]``, ``[superpixels]``, ``[affinity]``,
 ``[prior]``, ``[appearance]``, ``[refine]``, ``[solver]``, ``[confidence]``,
 ``[cleanup]``) plus the top-level ``seed``; unknown tables or keys are errors, so a
 typo never goes unnoticed.
@@ -22,6 +22,7 @@ __all__ = ["SplitConfig", "load_config", "SECTIONS", "check_registered_names"]
 
 #: Table of the TOML file each field lives in ("" = top level).
 SECTIONS = {
+    "background_radius": "background",
     "n_superpixels": "superpixels",
     "compactness": "superpixels",
     "pixel_grid_max_pixels": "superpixels",
@@ -65,6 +66,11 @@ class SplitConfig:
 
     Parameters
     ----------
+    background_radius : int or None
+        Flattening of an uneven background (:mod:`segcut.background`): None decides
+        per image (flatten when it turns the image into two clearly separated
+        classes), 0 never flattens, a positive integer always flattens with a square
+        of this half-width in pixels (larger than the objects' radius).
     n_superpixels : int or None
         Target number of SLIC superpixels; None chooses it from the image size (twice
         the square root of the pixel count, at least 100 and at most 6000; 1024 for
@@ -188,6 +194,7 @@ class SplitConfig:
     500
     """
 
+    background_radius: int | None = None
     n_superpixels: int | None = None
     compactness: float = 20.0
     pixel_grid_max_pixels: int = 1024
@@ -396,6 +403,7 @@ def _validate(cfg: SplitConfig) -> None:
         if not integer:  # 10 and 10.0 are the same setting: keep one spelling (stable hash)
             object.__setattr__(cfg, name, float(value))
 
+    number("background_radius", lo=0, integer=True, allow_none=True)
     number("n_superpixels", lo=1, integer=True, allow_none=True)
     number("compactness", lo=0, lo_open=True)
     number("pixel_grid_max_pixels", lo=0, integer=True)

@@ -58,6 +58,8 @@ class ImageGraph:
         How that hypothesis was chosen (a key of :data:`segcut.appearance.CHOICE_RULES`).
     hypothesis_disagreement : float
         1 - IoU between the kept end point and the closest other hypothesis's.
+    background : dict or None
+        The flattening decision (:meth:`segcut.background.BackgroundDecision.to_record`).
     pixel_context : PixelContext or None
         What the pixel refinement needs, in the processing orientation.
     """
@@ -77,6 +79,7 @@ class ImageGraph:
     hypothesis: str = "prior"
     choice_rule: str = "only"
     hypothesis_disagreement: float = 0.0
+    background: dict | None = None
     pixel_context: object = field(default=None, repr=False)
 
     @property

@@ -55,6 +55,7 @@ from scipy import ndimage as ndi
 from .maxcut import relative_gap
 from .orientation import _canonical_box, _lexicographic_less, \
     _symmetric_edges, _KEY_BLOCKS, _KEY_LEVELS, apply_transform, pick_canonical
+from .background import estimate_background, flatten_background
 from .prepare import NORMALISE_PERCENTILES, _channels_last, _fill_non_finite, image_features
 from .priors import SEED_BACKGROUND, SEED_FOREGROUND
 from .pixel_models import TWO_CLUSTER_SEPARATION, fit_two_gaussians
@@ -422,6 +423,10 @@ class _ReducedSplit:
         # the two-Gaussian pixel model (segcut.pixel_models), fitted on the reduced copy;
         # fit_llr: its log-odds on the reduced copy (float32), only on two-cluster images
         self.pixel_fit, self.fit_llr = pixel_fit, fit_llr
+        # the flattened background (segcut.background) of the reduced copy's lightness
+        # (float32) and its median, subtracted from every tile; None when not flattened
+        self.background, self.background_level = None, 0.0
+        self.background_record = None
 
     @property
     def two_cluster(self):
@@ -441,8 +446,14 @@ class _ReducedSplit:
         small_config = config if config.box is None else config.replace(
             box=_reduce_box(config.box, f))
         small_seeds = None if seeds is None else _reduce_seeds(seeds, f)
-        prepared = _Prepared(values, image_features(values), small_seeds, small_config,
-                             "identity", values.shape[:2], [], prior_transform=transform)
+        features = image_features(values)
+        radius = config.background_radius
+        if radius:  # a fixed radius is in full-size pixels
+            radius = max(1, int(round(radius / f)))
+        flat_features, background = flatten_background(features, radius)
+        prepared = _Prepared(values, flat_features, small_seeds, small_config,
+                             "identity", values.shape[:2], [], prior_transform=transform,
+                             background=background)
         seconds["reduce"] = time.perf_counter() - t0
         ig, regions = _graph_stages(prepared, seconds, generator)
         t0 = time.perf_counter()
@@ -457,7 +468,14 @@ class _ReducedSplit:
             fit = fit_two_gaussians(prepared.features, mask)
             if fit.separation >= TWO_CLUSTER_SEPARATION:
                 fit_llr = fit.log_likelihood_ratio(prepared.features).astype(np.float32)
-        return cls(ig, regions, sides, mask, f, shape, method, value, bound, fit, fit_llr)
+        out = cls(ig, regions, sides, mask, f, shape, method, value, bound, fit, fit_llr)
+        record = background.to_record()
+        if background.flattened:
+            level = estimate_background(features[..., 0], background.radius, background.objects)
+            out.background, out.background_level = level, float(np.median(level))
+            record["radius"] = int(background.radius * f)  # in full-size pixels
+        out.background_record = record
+        return out
 
     def word_llr(self):
         """Log-likelihood ratio of each colour word, from the reduced mask (pixel counts)."""
@@ -538,6 +556,10 @@ def _refine_tiles(view, reduced, config, seeds, lo, hi):
         w0, w1 = max(0, r0 - margin), min(rows, r1 + margin)
         v0, v1 = max(0, c0 - margin), min(cols, c1 + margin)
         features = image_features(_normalised(view[w0:w1, v0:v1], lo, hi))
+        if reduced.background is not None:
+            f = reduced.factor
+            level = reduced.background[np.ix_(np.arange(w0, w1) // f, np.arange(v0, v1) // f)]
+            features[..., 0] += reduced.background_level - level
         llr = llr_table[assign_colour_words(features, centres)]
         if reduced.two_cluster:
             llr = llr + reduced.pixel_fit.log_likelihood_ratio(features)
@@ -610,7 +632,7 @@ def _finish(refined, reduced, config, transform, seed, seconds, refine_record, c
         graphs.append(refine_record)
     warnings = list(ig.warnings)
     full_ig = replace(ig, labels=labels, canonical_transform=transform, pixel_context=None,
-                      warnings=warnings, seconds=seconds)
+                      warnings=warnings, seconds=seconds, background=reduced.background_record)
     return SplitResult(
         mask=final, labels=labels, value=value, upper_bound=bound,
         gap=relative_gap(value, bound), foreground_fraction=float(final.mean()),
@@ -622,4 +644,5 @@ def _finish(refined, reduced, config, transform, seed, seconds, refine_record, c
         canonical_transform=transform, hypothesis=ig.hypothesis, choice_rule=ig.choice_rule,
         hypothesis_disagreement=ig.hypothesis_disagreement,
         refine_changed_fraction=changed / max(final.size, 1), graphs=graphs,
+        background=reduced.background_record,
         confidence=confidence, uncertain_level=config.uncertain_level)

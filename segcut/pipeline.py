@@ -33,8 +33,9 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .affinity import weigh_pairs
-from .appearance import ModelProblem, border_rule, choose_end_point, run_model_rounds, \
-    start_hypotheses
+from .background import BackgroundDecision, flatten_background
+from .appearance import ModelProblem, border_rule, choose_end_point, lightness_threshold, \
+    run_model_rounds, start_hypotheses
 from .confidence import split_confidence, uncertain_fraction
 from .config import SplitConfig
 from .graph import cut_value, graph_from_edges
@@ -115,6 +116,9 @@ class SplitResult:
         in more than one way.
     refine_changed_fraction : float
         Share of the pixels whose side the pixel refinement changed.
+    background : dict or None
+        Whether the background was flattened before the split, at which radius and
+        by which rule (:mod:`segcut.background`); None for an image without contrast.
     graphs : list of dict
         Every graph solved, in order: ``name`` (``"superpixels"``, ``"refine"``),
         ``n_vertices``, ``value``, ``upper_bound`` and ``gap`` of that graph.
@@ -154,6 +158,7 @@ class SplitResult:
     choice_rule: str = "only"
     hypothesis_disagreement: float = 0.0
     refine_changed_fraction: float = 0.0
+    background: dict | None = None
     graphs: list = field(default_factory=list)
     confidence: np.ndarray | None = field(default=None, repr=False)
     uncertain_level: float = 0.9
@@ -185,7 +190,7 @@ class SplitResult:
         --------
         >>> r = split(np.eye(8), rng=0)
         >>> sorted(r.to_record())[:4]
-        ['canonical_transform', 'choice_rule', 'cleanup', 'foreground_fraction']
+        ['background', 'canonical_transform', 'choice_rule', 'cleanup']
         """
         return {
             "value": float(self.value),
@@ -205,6 +210,7 @@ class SplitResult:
             "choice_rule": self.choice_rule,
             "hypothesis_disagreement": round(float(self.hypothesis_disagreement), 6),
             "refine_changed_fraction": round(float(self.refine_changed_fraction), 6),
+            "background": None if self.background is None else dict(self.background),
             "graphs": [dict(g) for g in self.graphs],
             "uncertain_fraction": (None if self.confidence is None
                                    else round(self.uncertain_fraction, 6)),
@@ -249,6 +255,8 @@ class _Prepared:
     #: The transform named priors are moved by (default ``transform``; the large-image
     #: path hands in a reduced copy already in its canonical orientation).
     prior_transform: str | None = None
+    #: The flattening decision (:mod:`segcut.background`) the features come from.
+    background: BackgroundDecision | None = None
 
 
 def _prepare_stage(image, config, seeds, channel_axis, seconds):
@@ -274,10 +282,12 @@ def _prepare_stage(image, config, seeds, channel_axis, seconds):
         if config.box is not None:
             config = config.replace(box=_canonical_box(config.box, caller_spatial, transform))
     seconds["canonical"] = time.perf_counter() - t1
-    features = image_features(values)
-    seconds["prepare"] = time.perf_counter() - t0 - seconds["canonical"]
+    t2 = time.perf_counter()
+    features, background = flatten_background(image_features(values), config.background_radius)
+    seconds["background"] = time.perf_counter() - t2
+    seconds["prepare"] = time.perf_counter() - t0 - seconds["canonical"] - seconds["background"]
     return _Prepared(values, features, seeds, config, transform, tuple(caller_spatial),
-                     warnings), warnings, caller_spatial
+                     warnings, background=background), warnings, caller_spatial
 
 
 # -- stage 2: superpixels and region features ----------------------------------------
@@ -383,8 +393,12 @@ def _prior_stage(labels, regions, config, seeds, warnings, transform="identity")
 # -- stage 5: appearance models and start hypotheses --------------------------------
 
 def _appearance_stage(problem, labels, regions, adjacency, features, priors, config,
-                      generator):
+                      generator, flattened=False):
     """Colour-model rounds from the priors, or from several start hypotheses without them.
+
+    On a flattened image (:mod:`segcut.background`) with no prior the lightness
+    threshold of the flattened image, the split the flattening was judged by, is the
+    one start (rule ``"flattened_background"``).
 
     Returns (fg_w, bg_w, region_fg, hypothesis, rule, disagreement).
     """
@@ -396,6 +410,12 @@ def _appearance_stage(problem, labels, regions, adjacency, features, priors, con
     n = regions.n_regions
     box = get_prior("center").pixel_map(labels.shape, config)
     central = np.bincount(labels.ravel(), weights=box.ravel(), minlength=n) > 0.5 * regions.area
+    if flattened:
+        group = lightness_threshold(regions, features[..., 0])
+        if group is not None and group.any() and not group.all():
+            fg_w, bg_w, region_fg = run_model_rounds(
+                problem, group.astype(float), (~group).astype(float), rounds, generator)
+            return fg_w, bg_w, region_fg, "lightness_threshold", "flattened_background", 0.0
     hypotheses = start_hypotheses(regions, config.start_clusters, config.model_starts,
                                   central=central, lightness=features[..., 0])
     outcomes = [(name, run_model_rounds(problem, group.astype(float), (~group).astype(float),
@@ -450,8 +470,10 @@ def _graph_stages(prepared, seconds, rng, progress=None):
         with_terminal=informed or config.colour_model, oriented=informed, frame=regions.frame)
     generator = np.random.default_rng(rng)
     progress("appearance")
+    background = prepared.background
     fg_w, bg_w, region_fg, hypothesis, rule, disagreement = _appearance_stage(
-        problem, labels, regions, adjacency, prepared.features, priors, config, generator)
+        problem, labels, regions, adjacency, prepared.features, priors, config, generator,
+        flattened=background is not None and background.flattened)
     u = problem.evidence(fg_w, bg_w) if problem.with_terminal else np.zeros(regions.n_regions)
     g, terminal, region_vertex, offset = problem.assemble(u)
     if region_fg is None:
@@ -469,6 +491,7 @@ def _graph_stages(prepared, seconds, rng, progress=None):
                       threshold=threshold, start=start, warnings=warnings, seconds=seconds,
                       canonical_transform=prepared.transform, hypothesis=hypothesis,
                       choice_rule=rule, hypothesis_disagreement=disagreement,
+                      background=None if background is None else background.to_record(),
                       pixel_context=context), regions
 
 
@@ -749,6 +772,7 @@ def split(image, config: SplitConfig | None = None, *, seeds=None,
         canonical_transform=ig.canonical_transform, hypothesis=ig.hypothesis,
         choice_rule=ig.choice_rule, hypothesis_disagreement=ig.hypothesis_disagreement,
         refine_changed_fraction=float(np.count_nonzero(refined != mask)) / max(mask.size, 1),
+        background=ig.background,
         graphs=graphs, confidence=confidence, uncertain_level=config.uncertain_level)
 
 
