@@ -32,7 +32,8 @@ class Column:
         How the report shows a number: a format spec such as ``".3f"``, or
         ``"percent"`` (100 times the value, with ``%``).
     source : str
-        The record field the value is read from.
+        The record field the value is read from (``a.b``: field ``b`` of the table in
+        field ``a``).
     in_report : bool
         Shown in the report's table.
     optional : bool
@@ -74,6 +75,9 @@ OUTPUT_COLUMNS = (
     Column("hypothesis_disagreement", "disagreement", "num", ".3f",
            "hypothesis_disagreement", optional=True,
            meaning="1 - IoU between the kept split and the best competing hypothesis's"),
+    Column("background_radius", "flattened", "num", ".0f", "background.radius", optional=True,
+           meaning="half-width in pixels of the background flattening (segcut.background); "
+                   "0 when the image was not flattened"),
     Column("refine_changed_fraction", "refined", "num", "percent", "refine_changed_fraction",
            optional=True, meaning="share of pixels whose side the boundary refinement changed"),
     Column("uncertain_fraction", "uncertain", "num", "percent", "uncertain_fraction",
@@ -104,8 +108,13 @@ def column_value(column: Column, record: dict):
     12.5
     >>> column_value(OUTPUT_COLUMNS[-2], {})
     []
+    >>> flat = next(c for c in OUTPUT_COLUMNS if c.key == "background_radius")
+    >>> column_value(flat, {"background": {"radius": 16}}), column_value(flat, {})
+    (16, None)
     """
-    value = record.get(column.source)
+    value = record
+    for part in column.source.split("."):
+        value = value.get(part) if isinstance(value, dict) else None
     if column.kind == "list":
         return list(value or [])
     return value
