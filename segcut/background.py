@@ -139,8 +139,10 @@ def flatten_lightness(lightness, radius: int, objects: str = "bright") -> np.nda
     return x - background + float(np.median(background))
 
 
-#: At most about this many pixels (an even stride over the image) enter each measure of ``d'``.
+#: The decision is measured on an area-averaged copy of about this many pixels ...
 _SAMPLE = 60000
+#: ... of which about this many (an even stride) enter each measure of ``d'``.
+_FIT_SAMPLE = 15000
 
 
 def _otsu_threshold(values):
@@ -176,8 +178,11 @@ def _area_average(features, factor):
     if factor == 1:
         return features
     rows, cols = (features.shape[0] // factor) * factor, (features.shape[1] // factor) * factor
-    blocks = features[:rows, :cols].reshape(rows // factor, factor, cols // factor, factor, -1)
-    return blocks.mean(axis=(1, 3))
+    total = np.zeros((rows // factor, cols // factor, features.shape[-1]))
+    for i in range(factor):  # factor**2 strided sums: faster than a mean over blocks
+        for j in range(factor):
+            total += features[i:rows:factor, j:cols:factor]
+    return total / factor ** 2
 
 
 def _with_lightness(features, lightness):
@@ -227,14 +232,16 @@ def flatten_background(features, radius: int | None = None):
     # (radii divided by its reduction factor); the flattening itself is at full size
     factor = max(1, int(np.ceil(np.sqrt(lightness.size / _SAMPLE))))
     small = _area_average(features, factor)
-    sample = small.reshape(-1, small.shape[-1])
     small_lightness = small[..., 0]
+    # d' from an even stride of about _FIT_SAMPLE of its pixels
+    stride = max(1, -(-small_lightness.size // _FIT_SAMPLE))
+    sample = small.reshape(-1, small.shape[-1])[::stride]
     objects = _objects_side(small_lightness, _otsu_threshold(sample[:, 0]))
     separation = _separation(sample, sample[:, 0])
 
     def flattened_separation(r):
         r_small = max(1, int(round(r / factor)))
-        background = estimate_background(small_lightness, r_small, objects).ravel()
+        background = estimate_background(small_lightness, r_small, objects).ravel()[::stride]
         return _separation(sample, sample[:, 0] - background + float(np.median(background)))
 
     if radius is None:
