@@ -223,11 +223,13 @@ def image_rng(layer, seed: int) -> int:
 def make_config(*, base: segcut.SplitConfig | None = None, prior: str = "none", box=None,
                 n_superpixels: int = 0, affinity: str = "colour", prior_strength: float = 2.0,
                 fill_holes: bool = False, min_region_size: int = 0,
-                seed: int = 0) -> segcut.SplitConfig:
+                seed: int = 0, background_radius: int = -1) -> segcut.SplitConfig:
     """The :class:`segcut.SplitConfig` of the widget's choices.
 
     ``base`` gives every option the panel does not show (defaults when None), and its
-    box when ``box`` is None; ``n_superpixels=0`` lets segcut choose from the image size.
+    box when ``box`` is None; ``n_superpixels=0`` lets segcut choose from the image size;
+    ``background_radius=-1`` lets segcut decide whether to flatten the background (0:
+    never, a positive number: always, with that half-width).
 
     Examples
     --------
@@ -241,7 +243,8 @@ def make_config(*, base: segcut.SplitConfig | None = None, prior: str = "none", 
         prior=PRIORS[prior], box=base.box if box is None else tuple(int(v) for v in box),
         n_superpixels=int(n_superpixels) or None, affinity=affinity,
         prior_strength=float(prior_strength), fill_holes=bool(fill_holes),
-        min_region_size=int(min_region_size), seed=int(seed))
+        min_region_size=int(min_region_size), seed=int(seed),
+        background_radius=None if int(background_radius) < 0 else int(background_radius))
 
 
 def panel_choices(config: segcut.SplitConfig) -> dict:
@@ -249,7 +252,8 @@ def panel_choices(config: segcut.SplitConfig) -> dict:
 
     Examples
     --------
-    >>> cfg = segcut.SplitConfig(prior=("center", "border"), n_superpixels=400, seed=7)
+    >>> cfg = segcut.SplitConfig(prior=("center", "border"), n_superpixels=400, seed=7,
+    ...                          background_radius=12)
     >>> make_config(base=cfg, **panel_choices(cfg)) == cfg.replace(prior=("border", "center"))
     True
     """
@@ -260,4 +264,6 @@ def panel_choices(config: segcut.SplitConfig) -> dict:
     return {"prior": prior, "n_superpixels": config.n_superpixels or 0,
             "affinity": config.affinity, "prior_strength": config.prior_strength,
             "fill_holes": config.fill_holes, "min_region_size": config.min_region_size,
-            "seed": config.seed}
+            "seed": config.seed,
+            "background_radius": -1 if config.background_radius is None
+            else config.background_radius}

@@ -72,6 +72,21 @@ def format_number(value) -> str:
     return "–" if value is None else f"{float(value):.10g}"
 
 
+def background_text(background) -> str:
+    """What a split did to the background, in a few words (its record's ``background``).
+
+    Examples
+    --------
+    >>> background_text({"radius": 16, "objects": "dark", "rule": "gain"})
+    'flattened (radius 16, dark objects)'
+    >>> background_text({"radius": 0, "objects": "bright", "rule": "two_cluster"})
+    'as given'
+    """
+    if not background or not background.get("radius"):
+        return "as given"
+    return f"flattened (radius {background['radius']}, {background['objects']} objects)"
+
+
 def format_share(value, digits: int = 3) -> str:
     """A fraction in [0, 1] as a percentage, or a dash for None."""
     return "–" if value is None else f"{100.0 * float(value):.{digits}g}%"
@@ -201,6 +216,12 @@ class SplitWidget(QWidget):
                                     "this one and the file's content, as on the command line")
         self.fill_holes = QCheckBox()
         self.min_region_size = _spin_box(0, 10**9, 0)
+        self.background_radius = _spin_box(-1, 100000, -1, special="auto")
+        self.background_radius.setToolTip(
+            "Flatten an uneven background first (shading, small nuclei inside large cells): "
+            "half-width in pixels of the square its estimate is taken with, larger than the "
+            "objects; 0 never flattens; auto flattens only when that makes two clear classes")
+        form.addRow("background radius", self.background_radius)
         form.addRow("superpixels", self.superpixels)
         form.addRow("edge weights", self.affinity)
         form.addRow("prior strength", self.prior_strength)
@@ -220,7 +241,8 @@ class SplitWidget(QWidget):
         form.addRow(self.split_button)
         form.addRow(self.progress)
         self.numbers = {}
-        for name in ("cut value", "bound", "gap", "foreground", "side decided by", "hypothesis"):
+        for name in ("cut value", "bound", "gap", "foreground", "side decided by", "hypothesis",
+                     "background"):
             label = QLabel("–")
             label.setTextInteractionFlags(Qt.TextSelectableByMouse)
             self.numbers[name] = label
@@ -314,6 +336,7 @@ class SplitWidget(QWidget):
         self.random_seed.setValue(int(choices["seed"]))
         self.fill_holes.setChecked(bool(choices["fill_holes"]))
         self.min_region_size.setValue(int(choices["min_region_size"]))
+        self.background_radius.setValue(int(choices["background_radius"]))
 
     def use_run_settings(self) -> None:
         """Take the settings of the run folder the chosen image layer was opened from."""
@@ -338,7 +361,8 @@ class SplitWidget(QWidget):
                            prior_strength=self.prior_strength.value(),
                            fill_holes=self.fill_holes.isChecked(),
                            min_region_size=self.min_region_size.value(),
-                           seed=self.random_seed.value())
+                           seed=self.random_seed.value(),
+                           background_radius=self.background_radius.value())
 
     def _gather(self):
         """(image layer, ImageInput, config, seeds) of the panel; ValueError if unusable."""
@@ -415,6 +439,7 @@ class SplitWidget(QWidget):
         self.numbers["side decided by"].setText(SIDE_RULES.get(result.orientation,
                                                                result.orientation))
         self.numbers["hypothesis"].setText(str(record.get("hypothesis") or "–"))
+        self.numbers["background"].setText(background_text(record.get("background")))
         metadata = {METADATA_KEY: {"kind": "split", "image": image_layer.name, "record": record,
                                    "config": config.to_toml()}}
         _put_labels(self.viewer, f"{image_layer.name} split", result.mask.astype(np.uint8),

@@ -121,6 +121,32 @@ def test_widget_split_equals_engine_and_reruns_replace(make_napari_viewer, qtbot
     assert errors == []
 
 
+def test_background_radius_field_reaches_the_split(make_napari_viewer, qtbot, errors):
+    # A shaded scene (bright spots on a strong ramp of illumination): "auto" flattens it
+    # as segcut.split does, 0 does not; the panel shows which.
+    rng = np.random.default_rng(1)
+    yy, xx = np.mgrid[:160, :160]
+    spots = ((yy % 32 - 16) ** 2 + (xx % 32 - 16) ** 2) <= 9
+    image = 0.7 * (xx + yy) / 320 + 0.25 * spots + rng.normal(0, 0.02, spots.shape)
+    viewer = make_napari_viewer()
+    viewer.add_image(image, name="shaded")
+    widget = _widget_for(viewer)
+    widget.image_choice.setCurrentText("shaded")
+    assert widget.background_radius.text() == "auto"
+    assert widget.current_config().background_radius is None
+    _run(qtbot, widget, widget.run_split)
+    expected = segcut.split(image, make_config(), channel_axis=None, rng=0)
+    assert expected.background["radius"] > 0
+    np.testing.assert_array_equal(_labels_named(viewer, "shaded split")[0].data,
+                                  expected.mask.astype(np.uint8))
+    assert widget.numbers["background"].text().startswith("flattened (radius ")
+    widget.background_radius.setValue(0)
+    assert widget.current_config().background_radius == 0
+    _run(qtbot, widget, widget.run_split)
+    assert widget.numbers["background"].text() == "as given"
+    assert errors == []
+
+
 def _cli_mask(tmp_path, name, *extra):
     out = tmp_path / f"run_{name}"
     assert cli_main(["split", str(IMAGES / "sprig_trio.png"), "-o", str(out), *extra]) == 0
