@@ -24,7 +24,7 @@ from .maxcut.local import descend
 from .priors import colour_evidence
 from .regions import learn_colour_words
 
-__all__ = ["HYPOTHESES", "CHOICE_RULES", "start_hypotheses", "run_model_rounds",
+__all__ = ["HYPOTHESES", "CHOICE_RULES", "COMPLEMENT_IOU", "start_hypotheses", "run_model_rounds",
            "choose_end_point", "frame_shyness", "border_rule", "ModelProblem"]
 
 #: The start hypotheses of a split with no prior, by name.
@@ -37,6 +37,10 @@ HYPOTHESES = {
     "lightness_threshold": "an Otsu threshold of the pixel lightness, oriented by the border rule",
 }
 
+#: IoU (in pixels) between one end point's foreground and another's background from
+#: which the two count as complements (:func:`choose_end_point`).
+COMPLEMENT_IOU = 0.8
+
 #: How :func:`choose_end_point` decides between the end points of several hypotheses.
 CHOICE_RULES = {
     "only": "one hypothesis ran",
@@ -47,6 +51,12 @@ CHOICE_RULES = {
         "Jensen-Shannon divergence of its two colour models is kept: an object keeps off the "
         "frame, a true boundary follows strong edges, and the two sides look different; ties "
         "go to the earlier hypothesis"),
+    "smaller_of_complements": (
+        "as frame_shyness_over_separation, but another end point is nearly the complement of "
+        "the kept one (its complement overlaps the kept foreground with IoU >= "
+        "COMPLEMENT_IOU) and both keep to the border rule: the hypotheses agree on the "
+        "partition and the frame cannot tell the sides apart, so the one with the smaller "
+        "foreground is kept (objects are the smaller side of most images)"),
     "flattened_background": (
         "the background was flattened (segcut.background): the lightness threshold of the "
         "flattened image, the split the flattening was judged by, is the only start"),
@@ -349,6 +359,16 @@ def choose_end_point(outcomes, regions, adjacency, word_counts):
     shyness alone 0.638 and 0.533; frame shyness over contrast 0.639 and 0.644;
     this rule 0.639 and 0.675; the best hypothesis of each image 0.685 and 0.706.
 
+    When another end point is nearly the complement of the kept one (IoU of its
+    background with the kept foreground >= :data:`COMPLEMENT_IOU`) and has the
+    smaller foreground, it is kept instead (rule ``"smaller_of_complements"``): both
+    passed the border rule, so the frame could not tell object from field, and the
+    objects are the smaller side of most images. Measured (one run, final masks): it
+    takes 2 of the 100 dev microscopy images, both improved (0.006 -> 0.323 and
+    0.035 -> 0.836 IoU; densely stained tissue whose nuclei touch the frame as much as
+    the field does), and none of the 60 photographs (their largest complement IoU:
+    0.72).
+
     Parameters
     ----------
     outcomes : list of (name, (fg_w, bg_w, region_fg))
@@ -366,16 +386,51 @@ def choose_end_point(outcomes, regions, adjacency, word_counts):
     disagreement : float
         1 - IoU (in pixels) between the kept end point and the closest other
         one; 0 when only one hypothesis ran.
+
+    Examples
+    --------
+    Two regions of 30 and 70 pixels, none on the frame, and two end points that are
+    each other's complement: the smaller foreground is kept.
+
+    >>> from types import SimpleNamespace
+    >>> regions = SimpleNamespace(area=np.array([30.0, 70.0]), frame=np.zeros(2),
+    ...                           mean=np.array([[10.0], [60.0]]))
+    >>> adjacency = SimpleNamespace(rows=np.array([0]), cols=np.array([1]),
+    ...                             border=np.array([5.0]))
+    >>> counts = np.array([[30.0, 0.0], [0.0, 70.0]])
+    >>> big, small = np.array([False, True]), np.array([True, False])
+    >>> outcomes = [("a", (None, None, big)), ("b", (None, None, small))]
+    >>> choose_end_point(outcomes, regions, adjacency, counts)
+    (1, 'smaller_of_complements', 1.0)
     """
     if len(outcomes) == 1:
         return 0, "only", 0.0
     scores = [_choice_score(fg, regions, adjacency, word_counts) for _, (_, _, fg) in outcomes]
     index = int(np.argmin(scores))  # ties: the earlier start
+    rule = "frame_shyness_over_separation"
+    complement = _smaller_complement(outcomes, index, regions.area)
+    if complement is not None:
+        index, rule = complement, "smaller_of_complements"
     kept = outcomes[index][1][2]
     others = [region_iou(kept, fg, regions.area) for i, (_, (_, _, fg)) in enumerate(outcomes)
               if i != index and fg is not None and kept is not None]
     disagreement = 1.0 - max(others) if others else 0.0
-    return index, "frame_shyness_over_separation", float(disagreement)
+    return index, rule, float(disagreement)
+
+
+def _smaller_complement(outcomes, index, area):
+    """Position of the smallest end point that complements end point ``index`` and is smaller."""
+    kept = outcomes[index][1][2]
+    if kept is None:
+        return None
+    best, best_area = None, float(area[kept].sum())
+    for i, (_, (_, _, fg)) in enumerate(outcomes):
+        if i == index or fg is None or not fg.any() or fg.all():
+            continue
+        size = float(area[fg].sum())
+        if size < best_area and region_iou(kept, ~fg, area) >= COMPLEMENT_IOU:
+            best, best_area = i, size
+    return best
 
 
 def _choice_score(region_fg, regions, adjacency, word_counts):

@@ -141,3 +141,44 @@ def test_start_hypotheses_are_distinct_and_two_sided(n_starts):
             assert a.any() and not a.all()
         for b in starts[:i]:
             assert not np.array_equal(a, b)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.integers(0, 2 ** 32 - 1), st.integers(2, 5))
+def test_complement_rule_keeps_only_a_smaller_near_complement(seed, n_outcomes):
+    # the rule's contract, checked on random end points by plain set arithmetic: it
+    # moves only to an end point whose background overlaps the first choice's
+    # foreground with IoU >= COMPLEMENT_IOU and whose foreground is smaller
+    from types import SimpleNamespace
+
+    from segcut.appearance import COMPLEMENT_IOU, choose_end_point, region_iou
+
+    rng = np.random.default_rng(seed)
+    n = 12
+    area = rng.integers(1, 20, n).astype(float)
+    regions = SimpleNamespace(area=area, frame=rng.integers(0, 3, n).astype(float),
+                              mean=rng.normal(size=(n, 3)) * 20)
+    adjacency = SimpleNamespace(rows=np.arange(n - 1), cols=np.arange(1, n),
+                                border=np.ones(n - 1))
+    counts = rng.integers(0, 5, (n, 4)).astype(float)
+    first = rng.random(n) < 0.5
+    first[0], first[1] = True, False
+    outcomes = [("first", (None, None, first))]
+    for _ in range(n_outcomes - 1):  # complements of the first with a few regions moved
+        other = ~first
+        other[rng.integers(0, n, 2)] ^= True
+        outcomes.append(("other", (None, None, other)))
+    index, rule, _ = choose_end_point(outcomes, regions, adjacency, counts)
+    if rule == "smaller_of_complements":
+        kept = outcomes[index][1][2]
+        candidates = [fg for _, (_, _, fg) in outcomes if fg is not kept]
+        assert any(region_iou(fg, ~kept, area) >= COMPLEMENT_IOU
+                   and area[fg].sum() > area[kept].sum() for fg in candidates)
+    else:
+        assert rule == "frame_shyness_over_separation"
+        kept = outcomes[index][1][2]
+        for _, (_, _, fg) in outcomes:
+            if fg is kept or not fg.any() or fg.all():
+                continue
+            assert not (region_iou(kept, ~fg, area) >= COMPLEMENT_IOU
+                        and area[fg].sum() < area[kept].sum())
