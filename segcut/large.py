@@ -68,6 +68,8 @@ __all__ = ["uses_large_path", "split_large", "reduction_factor", "TILE"]
 TILE = 512
 #: Rows per chunk when streaming over the full-resolution image.
 _CHUNK_PIXELS = 1 << 20
+#: About this many full-resolution pixels (an even grid) fit the tiles' two-Gaussian model.
+_FIT_SAMPLE = 60000
 
 
 def uses_large_path(image, config, channel_axis) -> bool:
@@ -423,6 +425,10 @@ class _ReducedSplit:
         # the two-Gaussian pixel model (segcut.pixel_models), fitted on the reduced copy;
         # fit_llr: its log-odds on the reduced copy (float32), only on two-cluster images
         self.pixel_fit, self.fit_llr = pixel_fit, fit_llr
+        # the same model fitted on a sample of full-resolution pixels, for the tiles: an
+        # area average has a smaller variance than single pixels, so the reduced copy's
+        # model would give full-resolution noise far too much weight
+        self.tile_fit = None
         # the flattened background (segcut.background) of the reduced copy's lightness
         # (float32) and its median, subtracted from every tile; None when not flattened
         self.background, self.background_level = None, 0.0
@@ -430,8 +436,7 @@ class _ReducedSplit:
 
     @property
     def two_cluster(self):
-        return self.pixel_fit is not None and \
-            self.pixel_fit.separation >= TWO_CLUSTER_SEPARATION
+        return self.tile_fit is not None and self.tile_fit.separation >= TWO_CLUSTER_SEPARATION
 
     @classmethod
     def solve(cls, view, config, seeds, lo, hi, generator, seconds, transform="identity"):
@@ -475,7 +480,35 @@ class _ReducedSplit:
             out.background, out.background_level = level, float(np.median(level))
             record["radius"] = int(background.radius * f)  # in full-size pixels
         out.background_record = record
+        if fit is not None:
+            out.tile_fit = out.full_resolution_fit(view, lo, hi)
         return out
+
+    def full_resolution_features(self, block, r0, c0, lo, hi):
+        """Pixel features of ``block`` (full resolution, top left at ``r0, c0``), flattened
+        like the reduced copy when its background was."""
+        features = image_features(_normalised(block, lo, hi))
+        if self.background is not None:
+            f = self.factor
+            rows = np.arange(r0, r0 + block.shape[0]) // f
+            cols = np.arange(c0, c0 + block.shape[1]) // f
+            features[..., 0] += self.background_level - self.background[np.ix_(rows, cols)]
+        return features
+
+    def full_resolution_fit(self, view, lo, hi):
+        """The two-Gaussian model fitted on an even grid of about _FIT_SAMPLE full-resolution
+        pixels, started from the reduced mask."""
+        rows, cols = self.shape
+        step = max(1, int(np.ceil(np.sqrt(rows * cols / _FIT_SAMPLE))))
+        sample = np.asarray(view[::step, ::step])
+        features = image_features(_normalised(sample, lo, hi))
+        ri, ci = np.arange(0, rows, step) // self.factor, np.arange(0, cols, step) // self.factor
+        if self.background is not None:
+            features[..., 0] += self.background_level - self.background[np.ix_(ri, ci)]
+        mask = self.mask[np.ix_(ri, ci)]
+        if not mask.any() or mask.all():
+            return None
+        return fit_two_gaussians(features, mask)
 
     def word_llr(self):
         """Log-likelihood ratio of each colour word, from the reduced mask (pixel counts)."""
@@ -555,14 +588,10 @@ def _refine_tiles(view, reduced, config, seeds, lo, hi):
         r1, c1 = min(rows, r0 + TILE), min(cols, c0 + TILE)
         w0, w1 = max(0, r0 - margin), min(rows, r1 + margin)
         v0, v1 = max(0, c0 - margin), min(cols, c1 + margin)
-        features = image_features(_normalised(view[w0:w1, v0:v1], lo, hi))
-        if reduced.background is not None:
-            f = reduced.factor
-            level = reduced.background[np.ix_(np.arange(w0, w1) // f, np.arange(v0, v1) // f)]
-            features[..., 0] += reduced.background_level - level
+        features = reduced.full_resolution_features(view[w0:w1, v0:v1], w0, v0, lo, hi)
         llr = llr_table[assign_colour_words(features, centres)]
         if reduced.two_cluster:
-            llr = llr + reduced.pixel_fit.log_likelihood_ratio(features)
+            llr = llr + reduced.tile_fit.log_likelihood_ratio(features)
         free = np.zeros((w1 - w0, v1 - v0), dtype=bool)
         core = (slice(r0 - w0, r1 - w0), slice(c0 - v0, c1 - v0))
         free[core] = _forced(seeds, config.box, r0, r1, c0, c1) == 0
@@ -583,7 +612,8 @@ def _refine_tiles(view, reduced, config, seeds, lo, hi):
     record["gap"] = relative_gap(record["value"], record["upper_bound"])
     record["pixel_model"] = "colour_words+two_gaussians" if reduced.two_cluster \
         else "colour_words"
-    record["separation"] = round(reduced.pixel_fit.separation, 6)
+    record["separation"] = (None if reduced.tile_fit is None
+                            else round(reduced.tile_fit.separation, 6))
     return mask, record, changed
 
 

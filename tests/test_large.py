@@ -278,3 +278,20 @@ def test_float_image_with_non_finite_values_takes_the_large_path():
     assert any("non-finite value(s) replaced by the channel mean" in w for w in result.warnings)
     assert _iou(result.mask, truth) >= 0.97
     np.testing.assert_array_equal(image, before)
+
+
+def test_tiles_weigh_pixel_noise_as_the_full_path_does():
+    """Reduced by 4, an area average has 1/16 of a pixel's noise variance: the tiles'
+    pixel model is fitted on full-resolution pixels, so its separation is the full
+    path's (not four times it) and the noise does not speckle the mask (reference: the
+    scene's known truth and the full path on the same image)."""
+    rng = np.random.default_rng(5)
+    image, truth = _scene(5, (640, 640))
+    noisy = np.clip(image + rng.normal(0, 40, image.shape), 0, 255).astype(np.uint8)
+    full = split(noisy, FULL)
+    large = split(noisy, replace(LARGE, max_graph_pixels=640 * 640 // 16))
+    assert large.graphs[0]["reduction_factor"] == 4
+    separations = [[g for g in r.graphs if g["name"] == "refine"][0]["separation"]
+                   for r in (full, large)]
+    assert separations[1] == pytest.approx(separations[0], rel=0.15)
+    assert _iou(large.mask, truth) >= _iou(full.mask, truth) - 0.01
