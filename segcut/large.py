@@ -484,28 +484,24 @@ class _ReducedSplit:
             out.tile_fit = out.full_resolution_fit(view, lo, hi)
         return out
 
-    def full_resolution_features(self, block, r0, c0, lo, hi):
-        """Pixel features of ``block`` (full resolution, top left at ``r0, c0``), flattened
-        like the reduced copy when its background was."""
+    def full_resolution_features(self, block, rows, cols, lo, hi):
+        """Pixel features of ``block``, the full-resolution pixels at ``rows`` x ``cols``
+        (index arrays), flattened like the reduced copy when its background was."""
         features = image_features(_normalised(block, lo, hi))
         if self.background is not None:
-            f = self.factor
-            rows = np.arange(r0, r0 + block.shape[0]) // f
-            cols = np.arange(c0, c0 + block.shape[1]) // f
-            features[..., 0] += self.background_level - self.background[np.ix_(rows, cols)]
+            level = self.background[np.ix_(rows // self.factor, cols // self.factor)]
+            features[..., 0] += self.background_level - level
         return features
 
     def full_resolution_fit(self, view, lo, hi):
         """The two-Gaussian model fitted on an even grid of about _FIT_SAMPLE full-resolution
-        pixels, started from the reduced mask."""
+        pixels, started from the reduced mask (None when the grid sees one side only)."""
         rows, cols = self.shape
         step = max(1, int(np.ceil(np.sqrt(rows * cols / _FIT_SAMPLE))))
-        sample = np.asarray(view[::step, ::step])
-        features = image_features(_normalised(sample, lo, hi))
-        ri, ci = np.arange(0, rows, step) // self.factor, np.arange(0, cols, step) // self.factor
-        if self.background is not None:
-            features[..., 0] += self.background_level - self.background[np.ix_(ri, ci)]
-        mask = self.mask[np.ix_(ri, ci)]
+        ri, ci = np.arange(0, rows, step), np.arange(0, cols, step)
+        features = self.full_resolution_features(np.asarray(view[::step, ::step]), ri, ci,
+                                                 lo, hi)
+        mask = self.mask[np.ix_(ri // self.factor, ci // self.factor)]
         if not mask.any() or mask.all():
             return None
         return fit_two_gaussians(features, mask)
@@ -588,7 +584,8 @@ def _refine_tiles(view, reduced, config, seeds, lo, hi):
         r1, c1 = min(rows, r0 + TILE), min(cols, c0 + TILE)
         w0, w1 = max(0, r0 - margin), min(rows, r1 + margin)
         v0, v1 = max(0, c0 - margin), min(cols, c1 + margin)
-        features = reduced.full_resolution_features(view[w0:w1, v0:v1], w0, v0, lo, hi)
+        features = reduced.full_resolution_features(view[w0:w1, v0:v1], np.arange(w0, w1),
+                                                    np.arange(v0, v1), lo, hi)
         llr = llr_table[assign_colour_words(features, centres)]
         if reduced.two_cluster:
             llr = llr + reduced.tile_fit.log_likelihood_ratio(features)

@@ -407,15 +407,15 @@ def _appearance_stage(problem, labels, regions, adjacency, features, priors, con
         fg_w, bg_w, region_fg = run_model_rounds(problem, priors.fg_w, priors.bg_w, rounds,
                                                  generator)
         return fg_w, bg_w, region_fg, "prior" if problem.oriented else "none", "only", 0.0
-    n = regions.n_regions
-    box = get_prior("center").pixel_map(labels.shape, config)
-    central = np.bincount(labels.ravel(), weights=box.ravel(), minlength=n) > 0.5 * regions.area
     if flattened:
         group = lightness_threshold(regions, features[..., 0])
         if group is not None and group.any() and not group.all():
             fg_w, bg_w, region_fg = run_model_rounds(
                 problem, group.astype(float), (~group).astype(float), rounds, generator)
             return fg_w, bg_w, region_fg, "lightness_threshold", "flattened_background", 0.0
+    n = regions.n_regions
+    box = get_prior("center").pixel_map(labels.shape, config)
+    central = np.bincount(labels.ravel(), weights=box.ravel(), minlength=n) > 0.5 * regions.area
     hypotheses = start_hypotheses(regions, config.start_clusters, config.model_starts,
                                   central=central, lightness=features[..., 0])
     outcomes = [(name, run_model_rounds(problem, group.astype(float), (~group).astype(float),
