@@ -14,9 +14,11 @@ Otsu threshold of the lightness): an image is flattened when, as given, it is no
 two-cluster image (``d' <`` :data:`~segcut.pixel_models.TWO_CLUSTER_SEPARATION`) and
 flattening at two neighbouring scales of the ladder 4, 8, 16, ... pixels (up to a
 quarter of the shorter side) both make it one (``d' >=`` that threshold) and raise
-``d'`` by at least :data:`SEPARATION_GAIN`. Two scales, not one, so that a spike of ``d'`` at one scale
-(flattening that keeps only object rims or texture) does not count; the largest
-such scale is used, the one that changes the image least. Measured on the dev
+``d'`` by at least :data:`SEPARATION_GAIN`. Two scales, not one, so that a spike of
+``d'`` at one scale (flattening that keeps only object rims or texture) does not
+count; the largest such scale is used, the one that changes the image least. The
+decision is measured on an area-averaged copy of about 60 000 pixels (radii divided
+by its reduction factor); the flattening itself is done at full size. Measured on the dev
 microscopy and photograph sets (DEVELOPERS.md, "Quality decisions"): the rule
 flattens the brightfield images whose reference marks the small nuclei inside
 large cells and a fluorescence image with strong shading, and none of the 60
@@ -88,7 +90,7 @@ class BackgroundDecision:
 
 
 def estimate_background(lightness, radius: int, objects: str = "bright") -> np.ndarray:
-    """Grey-level opening (bright objects) or closing (dark) with a square of half-width ``radius``.
+    """Grey-level opening (bright objects) or closing (dark) with a square, half-width ``radius``.
 
     Structures narrower than the square that stand out from their surroundings
     (brighter for ``"bright"``) are removed; what is left is the background they sit on.
@@ -119,7 +121,7 @@ def estimate_background(lightness, radius: int, objects: str = "bright") -> np.n
 
 
 def flatten_lightness(lightness, radius: int, objects: str = "bright") -> np.ndarray:
-    """The lightness minus its background (:func:`estimate_background`), plus the background's median.
+    """The lightness minus its background (:func:`estimate_background`) plus that one's median.
 
     The objects keep their contrast to their immediate surroundings and the
     background becomes one level (its median), so the result stays on the scale of
@@ -174,7 +176,7 @@ def _objects_side(lightness, threshold):
 
 
 def _area_average(features, factor):
-    """Mean of each ``factor`` x ``factor`` block (the edge rows and columns that do not fill one dropped)."""
+    """Mean of each ``factor`` x ``factor`` block (edge rows and columns short of one dropped)."""
     if factor == 1:
         return features
     rows, cols = (features.shape[0] // factor) * factor, (features.shape[1] // factor) * factor
