@@ -21,10 +21,14 @@ dominates the time, so here:
    resolution in tiles of :data:`TILE` x :data:`TILE` pixels, only on tiles near the
    boundary or holding pixels whose colour word contradicts their side (judged on
    the reduced copy); on a two-cluster image the two-Gaussian pixel model
-   (:mod:`segcut.pixel_models`), fitted on the reduced copy, joins the colour
-   words as in the full-resolution path; each tile's features are computed for
-   the tile and a margin, and each tile's graph is solved with every pixel outside the tile fixed (tiles in
-   row order, each seeing the sides its predecessors chose).
+   (:mod:`segcut.pixel_models`) joins the colour words as in the full-resolution
+   path, fitted on a grid of full-resolution pixels (an area average carries a
+   fraction of a pixel's noise, so a model of the reduced copy would over-weight
+   it); when the reduced copy's background was flattened (:mod:`segcut.background`),
+   every tile pixel gets the lightness change of its block; each tile's features are
+   computed for the tile and a margin, and each tile's graph is solved with every
+   pixel outside the tile fixed (tiles in row order, each seeing the sides its
+   predecessors chose).
 
 The full-resolution ``labels`` come back as int32 and ``confidence`` as float32 (on
 the full-resolution path they stay int64 / float64): at 100 Mpixel that is 0.4 GB
@@ -55,10 +59,10 @@ from scipy import ndimage as ndi
 from .maxcut import relative_gap
 from .orientation import _canonical_box, _lexicographic_less, \
     _symmetric_edges, _KEY_BLOCKS, _KEY_LEVELS, apply_transform, pick_canonical
-from .background import estimate_background, flatten_background
+from .background import flatten_background
 from .prepare import NORMALISE_PERCENTILES, _channels_last, _fill_non_finite, image_features
 from .priors import SEED_BACKGROUND, SEED_FOREGROUND
-from .pixel_models import TWO_CLUSTER_SEPARATION, fit_two_gaussians
+from .pixel_models import fit_two_gaussians
 from .refine import DISAGREEMENT, refine_with_llr
 from .regions import assign_colour_words
 
@@ -418,25 +422,26 @@ class _ReducedSplit:
     """The superpixel split of the reduced canonical copy."""
 
     def __init__(self, ig, regions, sides, mask, factor, shape, method, value, bound,
-                 pixel_fit=None, fit_llr=None):
+                 fit_llr=None):
         self.ig, self.regions, self.sides, self.mask = ig, regions, sides, mask
         self.factor, self.shape, self.method = factor, shape, method
         self.value_before, self.bound = value, bound
-        # the two-Gaussian pixel model (segcut.pixel_models), fitted on the reduced copy;
-        # fit_llr: its log-odds on the reduced copy (float32), only on two-cluster images
-        self.pixel_fit, self.fit_llr = pixel_fit, fit_llr
+        # log-odds of the two-Gaussian pixel model (segcut.pixel_models) fitted on the
+        # reduced copy, on the reduced copy (float32), only when it is two-cluster there:
+        # they help pick the tiles to refine, at the reduced copy's own resolution
+        self.fit_llr = fit_llr
         # the same model fitted on a sample of full-resolution pixels, for the tiles: an
         # area average has a smaller variance than single pixels, so the reduced copy's
         # model would give full-resolution noise far too much weight
         self.tile_fit = None
-        # the flattened background (segcut.background) of the reduced copy's lightness
-        # (float32) and its median, subtracted from every tile; None when not flattened
-        self.background, self.background_level = None, 0.0
+        # what flattening the background (segcut.background) added to the reduced copy's
+        # lightness (float32), added to every tile pixel in its block; None when not flattened
+        self.lightness_offset = None
         self.background_record = None
 
     @property
     def two_cluster(self):
-        return self.tile_fit is not None and self.tile_fit.separation >= TWO_CLUSTER_SEPARATION
+        return self.tile_fit is not None and self.tile_fit.two_cluster
 
     @classmethod
     def solve(cls, view, config, seeds, lo, hi, generator, seconds, transform="identity"):
@@ -471,13 +476,12 @@ class _ReducedSplit:
         fit = fit_llr = None
         if config.refine and mask.any() and not mask.all():
             fit = fit_two_gaussians(prepared.features, mask)
-            if fit.separation >= TWO_CLUSTER_SEPARATION:
+            if fit.two_cluster:
                 fit_llr = fit.log_likelihood_ratio(prepared.features).astype(np.float32)
-        out = cls(ig, regions, sides, mask, f, shape, method, value, bound, fit, fit_llr)
+        out = cls(ig, regions, sides, mask, f, shape, method, value, bound, fit_llr)
         record = background.to_record()
         if background.flattened:
-            level = estimate_background(features[..., 0], background.radius, background.objects)
-            out.background, out.background_level = level, float(np.median(level))
+            out.lightness_offset = (flat_features[..., 0] - features[..., 0]).astype(np.float32)
             record["radius"] = int(background.radius * f)  # in full-size pixels
         out.background_record = record
         if fit is not None:
@@ -488,9 +492,9 @@ class _ReducedSplit:
         """Pixel features of ``block``, the full-resolution pixels at ``rows`` x ``cols``
         (index arrays), flattened like the reduced copy when its background was."""
         features = image_features(_normalised(block, lo, hi))
-        if self.background is not None:
-            level = self.background[np.ix_(rows // self.factor, cols // self.factor)]
-            features[..., 0] += self.background_level - level
+        if self.lightness_offset is not None:
+            features[..., 0] += self.lightness_offset[np.ix_(rows // self.factor,
+                                                             cols // self.factor)]
         return features
 
     def full_resolution_fit(self, view, lo, hi):
@@ -607,10 +611,8 @@ def _refine_tiles(view, reduced, config, seeds, lo, hi):
     if record["tiles"] == 0:
         return mask, None, changed
     record["gap"] = relative_gap(record["value"], record["upper_bound"])
-    record["pixel_model"] = "colour_words+two_gaussians" if reduced.two_cluster \
-        else "colour_words"
-    record["separation"] = (None if reduced.tile_fit is None
-                            else round(reduced.tile_fit.separation, 6))
+    record.update(reduced.tile_fit.refine_entry() if reduced.tile_fit is not None
+                  else {"pixel_model": "colour_words", "separation": None})
     return mask, record, changed
 
 

@@ -46,7 +46,7 @@ from .orientation import CANONICAL_TRANSFORMS, _canonical_box, apply_transform, 
 from .prepare import image_features, prepare_image
 from .priors import SEED_BACKGROUND, SEED_FOREGROUND, box_map, get_prior, prior_map, \
     seeded_regions
-from .pixel_models import TWO_CLUSTER_SEPARATION, fit_two_gaussians
+from .pixel_models import fit_two_gaussians
 from .refine import pixel_log_likelihood, refine_with_llr
 from .regions import describe_regions, region_adjacency, word_histograms
 from .superpixels import oversegment
@@ -571,8 +571,7 @@ def _refine_stage(ig: ImageGraph, mask, config):
     else:
         llr = pixel_log_likelihood(ctx.words, inside, ctx.n_words)
         fit = fit_two_gaussians(ctx.features, inside)
-        two_cluster = fit.separation >= TWO_CLUSTER_SEPARATION
-        if two_cluster:
+        if fit.two_cluster:
             llr = llr + fit.log_likelihood_ratio(ctx.features)
         result = refine_with_llr(ctx.features, inside, llr,
                                  band=_refine_band(config, ctx.labels, ig.n_regions),
@@ -581,9 +580,7 @@ def _refine_stage(ig: ImageGraph, mask, config):
         refined = result.mask
         record = {"name": "refine", "n_vertices": result.n_vertices,
                   "value": result.value, "upper_bound": result.upper_bound,
-                  "gap": relative_gap(result.value, result.upper_bound),
-                  "pixel_model": "colour_words+two_gaussians" if two_cluster else "colour_words",
-                  "separation": round(fit.separation, 6)}
+                  "gap": relative_gap(result.value, result.upper_bound), **fit.refine_entry()}
     if ctx.transform != "identity":
         refined = np.ascontiguousarray(apply_transform(refined, ctx.transform, inverse=True))
     return refined, record

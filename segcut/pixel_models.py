@@ -68,6 +68,16 @@ class TwoGaussianFit:
     variance: np.ndarray
     separation: float
 
+    @property
+    def two_cluster(self) -> bool:
+        """True when the classes are at least :data:`TWO_CLUSTER_SEPARATION` apart."""
+        return self.separation >= TWO_CLUSTER_SEPARATION
+
+    def refine_entry(self) -> dict:
+        """The ``pixel_model`` and ``separation`` a refinement record names for this fit."""
+        return {"pixel_model": "colour_words+two_gaussians" if self.two_cluster
+                else "colour_words", "separation": round(self.separation, 6)}
+
     def log_likelihood_ratio(self, features) -> np.ndarray:
         """Per pixel, log of (weight x density) of the foreground class over the background's.
 
