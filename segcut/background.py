@@ -38,6 +38,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .pixel_models import TWO_CLUSTER_SEPARATION, fit_two_gaussians
+from .prepare import block_average
 
 __all__ = ["SEPARATION_GAIN", "FIRST_RADIUS", "BackgroundDecision", "estimate_background",
            "flatten_lightness", "flatten_background"]
@@ -175,18 +176,6 @@ def _objects_side(lightness, threshold):
     return "bright" if bright_on_frame <= frame.size - bright_on_frame else "dark"
 
 
-def _area_average(features, factor):
-    """Mean of each ``factor`` x ``factor`` block (edge rows and columns short of one dropped)."""
-    if factor == 1:
-        return features
-    rows, cols = (features.shape[0] // factor) * factor, (features.shape[1] // factor) * factor
-    total = np.zeros((rows // factor, cols // factor, features.shape[-1]))
-    for i in range(factor):  # factor**2 strided sums: faster than a mean over blocks
-        for j in range(factor):
-            total += features[i:rows:factor, j:cols:factor]
-    return total / factor ** 2
-
-
 def _with_lightness(features, lightness):
     out = np.array(features, dtype=np.float64, copy=True)
     out[..., 0] = lightness
@@ -233,7 +222,7 @@ def flatten_background(features, radius: int | None = None):
     # the decision is measured on an area-averaged copy of about _SAMPLE pixels
     # (radii divided by its reduction factor); the flattening itself is at full size
     factor = max(1, int(np.ceil(np.sqrt(lightness.size / _SAMPLE))))
-    small = _area_average(features, factor)
+    small = block_average(features, factor) if factor > 1 else features
     small_lightness = small[..., 0]
     # d' from an even stride of about _FIT_SAMPLE of its pixels
     stride = max(1, -(-small_lightness.size // _FIT_SAMPLE))

@@ -15,6 +15,8 @@ from pathlib import Path
 
 import numpy as np
 
+from .prepare import block_average
+
 __all__ = [
     "FILL_COLOR",
     "FILL_OPACITY",
@@ -266,30 +268,7 @@ def reduced_for_display(image, mask, max_pixels: int, *, channel_axis: int | Non
     if mask.ndim != 2 or rows * cols <= max_pixels:
         return image, mask
     f = reduction_factor((rows, cols), max_pixels)
-    return _block_average(image, f), _block_average(mask, f)
-
-
-def _block_average(source, f):
-    """``source`` (M, N[, C]) averaged over f x f blocks (last row and column repeated up
-    to a multiple of f), in row chunks: booleans by majority (ties: True), integers
-    rounded back to their dtype."""
-    rows, cols = source.shape[:2]
-    m, n = -(-rows // f), -(-cols // f)
-    out = np.empty((m, n) + source.shape[2:], dtype=source.dtype)
-    step = max(1, (1 << 22) // max(cols * f, 1))
-    for i0 in range(0, m, step):
-        i1 = min(m, i0 + step)
-        block = source[i0 * f:i1 * f].astype(np.float64)
-        pad = [(0, (i1 - i0) * f - block.shape[0]), (0, n * f - cols)]
-        block = np.pad(block, pad + [(0, 0)] * (block.ndim - 2), mode="edge")
-        mean = block.reshape((i1 - i0, f, n, f) + block.shape[2:]).mean(axis=(1, 3))
-        if source.dtype == np.bool_:
-            out[i0:i1] = mean >= 0.5
-        elif np.issubdtype(source.dtype, np.integer):
-            out[i0:i1] = np.rint(mean)
-        else:
-            out[i0:i1] = mean
-    return out
+    return block_average(image, f), block_average(mask, f)
 
 
 def write_display_overlay(image_data, mask, path, *, legend: bool = True,
@@ -326,7 +305,7 @@ def write_display_overlay(image_data, mask, path, *, legend: bool = True,
         if picture.ndim != mask.ndim + (image_data.channel_axis is not None) \
                 or abs(picture.shape[0] - m) > 1 or abs(picture.shape[1] - n) > 1:
             continue  # not the shape a reduction by f gives: use the full image
-        small = _block_average(np.asarray(mask, dtype=bool), f)
+        small = block_average(np.asarray(mask, dtype=bool), f)
         small = np.pad(small, [(0, max(0, picture.shape[0] - m)), (0, max(0, picture.shape[1] - n))],
                        mode="edge")[:picture.shape[0], :picture.shape[1]]
         write_overlay(picture, small, path, channel_axis=image_data.channel_axis,

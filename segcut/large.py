@@ -60,7 +60,8 @@ from .maxcut import relative_gap
 from .orientation import _canonical_box, _lexicographic_less, \
     _symmetric_edges, _KEY_BLOCKS, _KEY_LEVELS, apply_transform, pick_canonical
 from .background import flatten_background
-from .prepare import NORMALISE_PERCENTILES, _channels_last, _fill_non_finite, image_features
+from .prepare import NORMALISE_PERCENTILES, _channels_last, _fill_non_finite, block_average, \
+    image_features
 from .priors import SEED_BACKGROUND, SEED_FOREGROUND
 from .pixel_models import fit_two_gaussians
 from .refine import DISAGREEMENT, refine_with_llr
@@ -323,9 +324,7 @@ def _reduce(view, f, lo, hi):
     step = max(1, _chunk_rows(view) // f)
     for i0 in range(0, m, step):
         i1 = min(m, i0 + step)
-        block = _normalised(view[i0 * f:i1 * f], lo, hi)
-        block = _padded(block, (i1 - i0) * f, n * f)
-        out[i0:i1] = block.reshape(i1 - i0, f, n, f, channels).mean(axis=(1, 3))
+        out[i0:i1] = block_average(_normalised(view[i0 * f:i1 * f], lo, hi), f)
     return out
 
 

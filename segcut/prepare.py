@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["prepare_image", "image_features"]
+__all__ = ["prepare_image", "image_features", "block_average"]
 
 
 #: Percentiles of each channel mapped to 0 and 1 by :func:`prepare_image`.
@@ -111,3 +111,40 @@ def image_features(x):
     else:
         feats = 100.0 * x
     return np.ascontiguousarray(feats, dtype=np.float64)
+
+
+def block_average(source, f):
+    """``source`` (M, N[, C]) averaged over f x f blocks (last row and column repeated up
+    to a multiple of f), in row chunks: booleans by majority (ties: True), integers
+    rounded back to their dtype, floats as float64 means.
+
+    Examples
+    --------
+    >>> block_average(np.arange(16.0).reshape(4, 4), 2)
+    array([[ 2.5,  4.5],
+           [10.5, 12.5]])
+    >>> block_average(np.eye(3, dtype=bool), 2)     # the last row and column repeated
+    array([[ True, False],
+           [False,  True]])
+    """
+    rows, cols = source.shape[:2]
+    m, n = -(-rows // f), -(-cols // f)
+    out = np.empty((m, n) + source.shape[2:], dtype=source.dtype)
+    step = max(1, (1 << 22) // max(cols * f, 1))
+    for i0 in range(0, m, step):
+        i1 = min(m, i0 + step)
+        block = source[i0 * f:i1 * f].astype(np.float64)
+        pad = [(0, (i1 - i0) * f - block.shape[0]), (0, n * f - cols)]
+        block = np.pad(block, pad + [(0, 0)] * (block.ndim - 2), mode="edge")
+        total = np.zeros((i1 - i0, n) + block.shape[2:])
+        for i in range(f):  # f**2 strided sums: faster than a mean over reshaped blocks
+            for j in range(f):
+                total += block[i::f, j::f]
+        mean = total / (f * f)
+        if source.dtype == np.bool_:
+            out[i0:i1] = mean >= 0.5
+        elif np.issubdtype(source.dtype, np.integer):
+            out[i0:i1] = np.rint(mean)
+        else:
+            out[i0:i1] = mean
+    return out
