@@ -123,9 +123,10 @@ def tile_order(planes, shape, cell, n_cells):
 
 
 @njit(cache=True)
-def _assign_tile(centres, k, steps, spatial_weight, pixels, s0, n, best):
-    """Compare centre ``k`` with the ``n`` pixels of a tile starting at ``s0`` in the
-    tile-ordered ``pixels`` (one branch-free loop)."""
+def _assign_tile(centres, k, windows, spatial_weight, pixels, s0, n, best):
+    """Compare centre ``k`` (search window ``windows[k]``, :func:`_window`) with the ``n``
+    pixels of a tile starting at ``s0`` in the tile-ordered ``pixels`` (one branch-free
+    loop)."""
     colour, zs_all, ys_all, xs_all, own_all, _ = pixels
     zs, ys, xs, own = zs_all[s0:s0 + n], ys_all[s0:s0 + n], xs_all[s0:s0 + n], own_all[s0:s0 + n]
     n_channels = colour.shape[0]
@@ -133,12 +134,8 @@ def _assign_tile(centres, k, steps, spatial_weight, pixels, s0, n, best):
     q1 = colour[min(1, n_channels - 1), s0:s0 + n]
     q2 = colour[min(2, n_channels - 1), s0:s0 + n]
     cz, cy, cx = centres[k, 0], centres[k, 1], centres[k, 2]
-    z0 = int(max(cz - 2 * steps[0], 0.0))
-    z1 = int(cz + 2 * steps[0] + 1)
-    y0 = int(max(cy - 2 * steps[1], 0.0))
-    y1 = int(cy + 2 * steps[1] + 1)
-    x0 = int(max(cx - 2 * steps[2], 0.0))
-    x1 = int(cx + 2 * steps[2] + 1)
+    z0, z1, y0, y1, x0, x1 = windows[k, 0], windows[k, 1], windows[k, 2], windows[k, 3], \
+        windows[k, 4], windows[k, 5]
     c1, c2 = min(1, n_channels - 1), min(2, n_channels - 1)
     m0, m1, m2 = centres[k, 3], centres[k, 3 + c1], centres[k, 3 + c2]
     for i in range(n):
@@ -163,7 +160,7 @@ def _assign_tile(centres, k, steps, spatial_weight, pixels, s0, n, best):
 
 
 @njit(cache=True)
-def _tile_upper_bound(centres, alive, steps, spatial_weight, pixels, s0, n):
+def _tile_upper_bound(centres, alive, windows, spatial_weight, pixels, s0, n):
     """Largest distance of a tile's pixels to the centres they had (inf when one of
     those centres is gone or no longer reaches its pixel): no pixel of the tile
     ends farther than this from its nearest centre."""
@@ -175,9 +172,8 @@ def _tile_upper_bound(centres, alive, steps, spatial_weight, pixels, s0, n):
             return np.inf
         z, y, x = zs[i], ys[i], xs[i]
         cz, cy, cx = centres[k, 0], centres[k, 1], centres[k, 2]
-        if not (int(max(cz - 2 * steps[0], 0.0)) <= z < int(cz + 2 * steps[0] + 1)
-                and int(max(cy - 2 * steps[1], 0.0)) <= y < int(cy + 2 * steps[1] + 1)
-                and int(max(cx - 2 * steps[2], 0.0)) <= x < int(cx + 2 * steps[2] + 1)):
+        if not (windows[k, 0] <= z < windows[k, 1] and windows[k, 2] <= y < windows[k, 3]
+                and windows[k, 4] <= x < windows[k, 5]):
             return np.inf
         d = ((cz - z) * (cz - z) + (cy - y) * (cy - y) + (cx - x) * (cx - x)) * spatial_weight
         tone = 0.0
@@ -249,11 +245,11 @@ def slic_assign(pixels, start, centres, alive, steps, spatial_weight, shape, lab
                 s0, s1 = start[t], start[t + 1]
                 n = s1 - s0
                 best[:n] = np.inf
-                reach = _tile_upper_bound(centres, alive, steps, spatial_weight, pixels, s0, n)
+                reach = _tile_upper_bound(centres, alive, windows, spatial_weight, pixels, s0, n)
                 for j in range(m):
                     if _box_distance(centres, found[j], lo, hi, spatial_weight) > reach:
                         continue  # farther from every pixel of the tile than its own centre
-                    _assign_tile(centres, found[j], steps, spatial_weight, pixels, s0, n, best)
+                    _assign_tile(centres, found[j], windows, spatial_weight, pixels, s0, n, best)
                 pairs += m
                 t += 1
     for i in range(flat.shape[0]):

@@ -185,18 +185,10 @@ def _lloyd(colours, weights, centres, n_iter):
     n, n_channels = colours.shape
     k = centres.shape[0]
     nearest = np.empty(n, dtype=np.int64)
+    planes = np.ascontiguousarray(colours.T)
     for _ in range(n_iter):
-        for i in range(n):
-            best, best_d = 0, np.inf
-            for j in range(k):
-                t = colours[i, 0] - centres[j, 0]
-                d = t * t
-                for c in range(1, n_channels):
-                    t = colours[i, c] - centres[j, c]
-                    d += t * t
-                if d < best_d:
-                    best, best_d = j, d
-            nearest[i] = best
+        nearest[:] = 0
+        _nearest_centre(planes, centres, nearest)
         total = np.zeros(k)
         new = np.zeros((k, n_channels))
         for i in range(n):

@@ -122,9 +122,7 @@ def _scaled_for_slic(features, compactness, sigma):
     """
     low, high = float(features.min()), float(features.max())
     scale = high - low if high > low else 1.0
-    image = features - low
-    if high > low:
-        image /= high - low
+    image = (features - low) / scale
     if sigma > 1e-15:
         image = gaussian_smooth(image, sigma)
     return np.ascontiguousarray(image * (1.0 / (compactness / scale)))

@@ -46,9 +46,14 @@ def is_attractive_with_terminal(graph: SignedGraph, terminal: int) -> bool:
     >>> is_attractive_with_terminal(g, 2), is_attractive_with_terminal(g, 0)
     (True, False)
     """
-    rows, cols, w = graph.edges()
-    inner = (rows != terminal) & (cols != terminal)
-    return bool(np.all(w[inner] <= 0.0))
+    return not bool(np.any(_pair_capacities(graph, terminal) < 0.0))
+
+
+def _pair_capacities(graph: SignedGraph, terminal: int) -> np.ndarray:
+    """Per stored arc, minus its weight, and 0 on the arcs touching ``terminal``."""
+    rows = np.repeat(np.arange(graph.n_vertices, dtype=np.int64), np.diff(graph.indptr))
+    at_t = (rows == terminal) | (graph.indices == terminal)
+    return np.where(at_t, 0.0, -graph.weights)
 
 
 def attractive_terminal_maxcut(graph: SignedGraph, terminal: int | None = None):
@@ -91,10 +96,7 @@ def attractive_terminal_maxcut(graph: SignedGraph, terminal: int | None = None):
     t = n - 1 if terminal is None else int(terminal)
     if not 0 <= t < n:
         raise ValueError(f"terminal {t} is not a vertex of a graph of {n} vertices")
-    n_arcs = graph.indices.shape[0]
-    rows = np.repeat(np.arange(n, dtype=np.int64), np.diff(graph.indptr))
-    at_t = (rows == t) | (graph.indices == t)
-    pair_w = np.where(at_t, 0.0, -graph.weights)
+    pair_w = _pair_capacities(graph, t)
     if np.any(pair_w < 0.0):
         raise ValueError("method 'flow' needs every edge away from the terminal to be <= 0 "
                          "(an attractive graph with one terminal)")
@@ -103,7 +105,7 @@ def attractive_terminal_maxcut(graph: SignedGraph, terminal: int | None = None):
     a[graph.indices[lo:hi]] = graph.weights[lo:hi]
     src_cap, sink_cap = np.maximum(-a, 0.0), np.maximum(a, 0.0)
     reward = float(np.sum(sink_cap))
-    largest = max(float(src_cap.sum()), reward, float(pair_w.max()) if n_arcs else 0.0)
+    largest = max(float(src_cap.sum()), reward, float(pair_w.max()) if pair_w.size else 0.0)
     if largest <= 0.0:
         sides = np.ones(n, dtype=np.int8)
         return sides, cut_value(graph, sides), 0.0

@@ -300,7 +300,8 @@ class _SparseShifted:
 
 def _is_positive_definite(graph: SignedGraph, diagonal: np.ndarray, dense: bool,
                           shifted: _SparseShifted | None = None) -> bool:
-    """Factorisation test of ``Diag(diagonal) + W/4``: Cholesky (dense) or LDL^T pivots.
+    """Factorisation test of ``Diag(diagonal) + W/4``: Cholesky (dense) or LDL^T pivots
+    of ``shifted`` (the sparse matrix, needed when not ``dense``).
 
     Call it with at most one BLAS thread (:func:`_blas_threads`)."""
     if dense:
@@ -310,8 +311,6 @@ def _is_positive_definite(graph: SignedGraph, diagonal: np.ndarray, dense: bool,
         except sla.LinAlgError:
             return False
         return True
-    if shifted is None:
-        return _ldl_positive_definite(_sparse_shifted(graph, diagonal))
     return _ldl_positive_definite(shifted.with_diagonal(diagonal))
 
 
