@@ -141,6 +141,18 @@ def is_image_folder(path) -> bool:
     return path.is_dir() and not is_zarr_store(path)
 
 
+def path_groups(paths: list, target_is_folder: bool) -> list:
+    """``(set name, [paths])`` of the masks given beside one image or reference: with a
+    file, one set per path; with a folder, one set per folder and the loose files
+    together (set ``"files"``)."""
+    if not target_is_folder:
+        return [(str(p), [p]) for p in paths]
+    folders = [is_image_folder(p) for p in paths]
+    groups = [(str(p), [p]) for p, folder in zip(paths, folders) if folder]
+    loose = [p for p, folder in zip(paths, folders) if not folder]
+    return groups + ([("files", loose)] if loose else [])
+
+
 def collect_files(paths, *, name: str) -> FileSet:
     """Key the given files and the image files under the given folders."""
     found = FileSet(name=name)

@@ -294,9 +294,10 @@ def write_display_overlay(image_data, mask, path, *, legend: bool = True,
     200
     """
     rows, cols = mask.shape if mask.ndim == 2 else (0, 0)
-    for fy, fx, read in sorted(getattr(image_data, "levels", ()), key=lambda level: level[0]):
+    levels = image_data.levels if rows * cols > max_pixels else ()
+    for fy, fx, read in sorted(levels, key=lambda level: level[0]):
         f = int(round(fy))
-        if rows * cols <= max_pixels or fy != fx or abs(fy - f) > 1e-9 or f < 2:
+        if fy != fx or abs(fy - f) > 1e-9 or f < 2:
             continue
         m, n = -(-rows // f), -(-cols // f)
         if m * n > max_pixels:
@@ -306,7 +307,8 @@ def write_display_overlay(image_data, mask, path, *, legend: bool = True,
                 or abs(picture.shape[0] - m) > 1 or abs(picture.shape[1] - n) > 1:
             continue  # not the shape a reduction by f gives: use the full image
         small = block_average(np.asarray(mask, dtype=bool), f)
-        small = np.pad(small, [(0, max(0, picture.shape[0] - m)), (0, max(0, picture.shape[1] - n))],
+        small = np.pad(small, [(0, max(0, picture.shape[0] - m)),
+                               (0, max(0, picture.shape[1] - n))],
                        mode="edge")[:picture.shape[0], :picture.shape[1]]
         write_overlay(picture, small, path, channel_axis=image_data.channel_axis,
                       legend=legend, max_pixels=None)

@@ -114,8 +114,6 @@ __all__ = [
 #: File name endings of the image types :func:`read_image` reads (lower case), for
 #: folder scans. Reading itself recognises the format by content.
 IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
-#: Folders read as one image: Zarr stores (named ``*.zarr`` or holding Zarr metadata).
-FOLDER_IMAGE_SUFFIXES = (".zarr",)
 
 #: Largest number of pixels (all pages together) :func:`read_image` accepts by default:
 #: 64 megapixels, a guard against decompression bombs.

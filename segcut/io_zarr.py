@@ -25,8 +25,8 @@ images are read up to ``max_mapped_pixels`` pixels.
 
 OME-Zarr's lower-resolution datasets are listed in :attr:`ImageData.levels` (scale
 factors from their ``scale`` transforms, relative to the full resolution), and an
-overlay of a large image is drawn from the smallest level that still has at least
-the overlay's pixels (:func:`segcut.io.display_copy`). The superpixel graph is not
+overlay of a large image is drawn from the largest level that fits in the overlay's
+pixels (:func:`segcut.drawing.write_display_overlay`). The superpixel graph is not
 built on such a level: the large-image path's reduced copy is an area average of the
 normalised pixels in their canonical orientation, which keeps results the same as
 for the same pixels in a TIFF and exactly equivariant; a level made by another
@@ -307,8 +307,6 @@ def read_zarr(path, *, max_pixels: int, lazy_pixels: int, max_mapped_pixels: int
     try:
         values = _mapped(array, index, order, out_shape, kept) if mapped \
             else _in_memory(array, index, order)
-    except InputError:
-        raise
     except MemoryError:
         raise InputError("Zarr image too large to hold in memory", path=path) from None
     except Exception as err:  # noqa: BLE001 - a damaged chunk can fail anywhere

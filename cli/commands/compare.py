@@ -16,9 +16,8 @@ import sys
 from pathlib import Path
 
 from ..common import (EXIT_FAILED, EXIT_OK, FileSet, NothingDone, UsageError, check_exists,
-                      is_image_folder, collect_files, duplicate_lines, match_files, plural,
-                      size_text, table,
-                      unmatched_entry, unmatched_lines, write_json)
+                      collect_files, duplicate_lines, is_image_folder, match_files, path_groups,
+                      plural, size_text, table, unmatched_entry, unmatched_lines, write_json)
 from ..common import err as common_err
 from ..common import fmt_number as _fmt
 
@@ -36,16 +35,6 @@ _TITLES = {
 }
 
 
-def _groups(pred_paths: list, ref_path: Path) -> list:
-    """``(set name, [paths])``: one set per prediction folder; loose files together
-    (with a reference folder) or one set each (with a reference file)."""
-    if not is_image_folder(ref_path):
-        return [(str(p), [p]) for p in pred_paths]
-    groups = [(str(p), [p]) for p in pred_paths if is_image_folder(p)]
-    loose = [p for p in pred_paths if not is_image_folder(p)]
-    return groups + ([("files", loose)] if loose else [])
-
-
 def _pair_sets(pred_paths: list, ref_path: Path) -> tuple:
     """Match every prediction set with the references.
 
@@ -53,7 +42,8 @@ def _pair_sets(pred_paths: list, ref_path: Path) -> tuple:
     ``unmatched`` a list of :func:`unmatched_entry`; ``problems`` one-line messages
     about ambiguous files (each counts as a failed input).
     """
-    if is_image_folder(ref_path):
+    ref_is_folder = is_image_folder(ref_path)
+    if ref_is_folder:
         refs = collect_files([ref_path], name="reference")
     else:
         refs = FileSet(name="reference", files={ref_path.stem: ref_path})
@@ -62,16 +52,16 @@ def _pair_sets(pred_paths: list, ref_path: Path) -> tuple:
         raise UsageError("no reference masks found (looked for image files in it and its "
                          "sub-folders)", path=ref_path)
     pairs, unmatched = {}, []
-    for set_name, paths in _groups(pred_paths, ref_path):
+    for set_name, paths in path_groups(pred_paths, ref_is_folder):
         if set_name in pairs:
             set_name = f"{set_name} ({len(pairs) + 1})"
-        if not is_image_folder(ref_path) and not is_image_folder(paths[0]):
+        if not ref_is_folder and not is_image_folder(paths[0]):
             pairs[set_name] = {ref_path.stem: (paths[0], ref_path)}  # a file against the one
             continue
         found = collect_files(paths, name=set_name)
         problems += duplicate_lines(found, "prediction")
         matched, preds_only, refs_only = match_files(found.files, refs.files)
-        if is_image_folder(ref_path):
+        if ref_is_folder:
             refs_only = [k for k in refs_only if k not in found.duplicates]
             unmatched += [
                 unmatched_entry(set_name, "prediction without a reference",

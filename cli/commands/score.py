@@ -17,25 +17,18 @@ import sys
 from pathlib import Path
 
 from ..common import (EXIT_FAILED, EXIT_OK, FileSet, NothingDone, UsageError, check_exists,
-                      is_image_folder, collect_files, duplicate_lines, match_files, size_text, table,
-                      unmatched_entry, unmatched_lines, write_json)
+                      collect_files, duplicate_lines, is_image_folder, match_files, path_groups,
+                      size_text, table, unmatched_entry, unmatched_lines, write_json)
 from ..common import err as common_err
 
 CSV_COLUMNS = ("image", "mask", "path", "rank", "value", "upper_bound", "gap", "agreement",
                "foreground_fraction", "solver_value", "n_superpixels", "seed")
 
 
-def _mask_groups(mask_paths: list, image_is_dir: bool) -> list:
-    if not image_is_dir:
-        return [(str(p), [p]) for p in mask_paths]
-    groups = [(str(p), [p]) for p in mask_paths if is_image_folder(p)]
-    loose = [p for p in mask_paths if not is_image_folder(p)]
-    return groups + ([("files", loose)] if loose else [])
-
-
 def _plan(image_path: Path, mask_paths: list) -> tuple:
     """``(jobs, unmatched, problems)``: ``jobs[key] = (image, [(mask name, mask path)])``."""
-    if is_image_folder(image_path):
+    image_is_folder = is_image_folder(image_path)
+    if image_is_folder:
         images = collect_files([image_path], name="images")
     else:
         images = FileSet(name="images", files={image_path.stem: image_path})
@@ -46,8 +39,8 @@ def _plan(image_path: Path, mask_paths: list) -> tuple:
     jobs = {key: (path, []) for key, path in sorted(images.files.items())}
     key_of = {path: key for key, path in images.files.items()}
     unmatched: list = []
-    for name, paths in _mask_groups(mask_paths, is_image_folder(image_path)):
-        if not is_image_folder(image_path) and not is_image_folder(paths[0]):
+    for name, paths in path_groups(mask_paths, image_is_folder):
+        if not image_is_folder and not is_image_folder(paths[0]):
             _add_mask(jobs[image_path.stem][1], name, paths[0])  # a file for the one image
             continue
         found = collect_files(paths, name=name)
@@ -55,7 +48,7 @@ def _plan(image_path: Path, mask_paths: list) -> tuple:
         matched, masks_only, images_only = match_files(found.files, images.files)
         for _, (mask, image) in sorted(matched.items()):
             _add_mask(jobs[key_of[image]][1], name, mask)
-        if is_image_folder(image_path):
+        if image_is_folder:
             unmatched.append(unmatched_entry(name, "mask without an image",
                                              [found.files[k] for k in masks_only]))
         unmatched.append(unmatched_entry(name, "image without a mask",

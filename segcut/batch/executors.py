@@ -88,27 +88,12 @@ def _no_stage(name: str) -> None:
     pass
 
 
-def is_large_input(spatial_shape, config) -> bool:
-    """True for a 2-D image above ``config.max_graph_pixels`` (the large-image path): its
-    mask (and confidence map) is written as a TIFF in tiles, not as a PNG.
-
-    Examples
-    --------
-    >>> from segcut import SplitConfig
-    >>> is_large_input((1500, 1500), SplitConfig()), is_large_input((2000, 2000), SplitConfig())
-    (False, True)
-    """
-    limit = getattr(config, "max_graph_pixels", None)
-    return limit is not None and len(spatial_shape) == 2 \
-        and spatial_shape[0] * spatial_shape[1] > limit
-
-
 def process_task(task: Task, stage=_no_stage) -> dict:
     """Read, split and write one image; return its record. Never raises for bad input.
 
     The mask goes to ``<task.mask>.png``, or ``.tif`` (zlib-compressed, in 256 x 256
-    tiles for a 2-D image above ``max_graph_pixels``, :func:`is_large_input`) for 3-D
-    stacks and large images; the record's ``mask`` names the file written. Overlays of
+    tiles for a 2-D image above ``max_graph_pixels``,
+    :func:`segcut.large.uses_large_path`) for 3-D stacks and large images; the record's ``mask`` names the file written. Overlays of
     large images are drawn from a reduced copy (:func:`segcut.drawing.write_display_overlay`).
 
     ``stage`` (in-process runs only) is called with ``"reading"``, ``"splitting"``, then
@@ -192,9 +177,10 @@ def _write_outputs(task: Task, image, result) -> tuple:
     from ..confidence import confidence_to_uint8
     from ..drawing import write_display_overlay
     from ..io import write_image, write_mask
+    from ..large import uses_large_path
 
     out = Path(task.out_dir)
-    large = is_large_input(image.spatial_shape, task.config)
+    large = uses_large_path(image.array, task.config, image.channel_axis)
     suffix = ".tif" if image.is_stack or large else ".png"
     mask_name = task.mask + suffix
     write_mask(result.mask, out / mask_name, tiled=large)
@@ -330,10 +316,9 @@ MEMORY_RESOURCE = "segcut_memory"
 
 def task_peak_bytes(task: Task) -> int:
     """Estimated peak bytes of splitting ``task``'s image (0 when its header is unreadable)."""
-    from .memory import estimate_peak_bytes, image_pixels
+    from .memory import file_peak_bytes
 
-    shape = image_pixels(task.path)
-    return estimate_peak_bytes(shape, task.config) if shape else 0
+    return file_peak_bytes(task.path, task.config)
 
 
 def _local_cluster(n_workers: int, worker_bytes: float | None = None):

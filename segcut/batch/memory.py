@@ -37,6 +37,7 @@ import math
 import os
 
 __all__ = ["estimate_peak_bytes", "available_memory", "memory_workers", "image_pixels",
+           "file_peak_bytes",
            "BASE_BYTES", "GRAPH_BYTES_PER_PIXEL", "FULL_BYTES_PER_PIXEL", "BUDGET_FRACTION"]
 
 GIB = 1024 ** 3
@@ -148,3 +149,10 @@ def image_pixels(path) -> tuple | None:
             return (int(img.size[1]), int(img.size[0]))
     except Exception:  # noqa: BLE001 - unreadable headers are read (and reported) later
         return None
+
+
+def file_peak_bytes(path, config) -> int:
+    """:func:`estimate_peak_bytes` of the image at ``path`` from its header (0 when the
+    header cannot be read that way)."""
+    shape = image_pixels(path)
+    return estimate_peak_bytes(shape, config) if shape else 0

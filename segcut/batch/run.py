@@ -407,15 +407,12 @@ def _budget_bytes(memory_budget):
 
 def _memory_jobs(jobs, todo, config, memory_budget):
     """``jobs`` capped by the memory budget and the largest image's estimated peak."""
-    from .memory import estimate_peak_bytes, image_pixels, memory_workers
+    from .memory import file_peak_bytes, memory_workers
 
     if jobs <= 1 or len(todo) <= 1:
         return jobs
-    budget = _budget_bytes(memory_budget)
-    shapes = [image_pixels(entry[0].path) for entry in todo]
-    peak = max(estimate_peak_bytes(shape, config) for shape in shapes if shape) \
-        if any(shapes) else 0
-    return memory_workers(jobs, peak, budget)
+    peak = max(file_peak_bytes(entry[0].path, config) for entry in todo)
+    return memory_workers(jobs, peak, _budget_bytes(memory_budget))
 
 
 def _executor(tasks, *, jobs, n_todo, scheduler, dask_local, config, stage, memory_budget):
